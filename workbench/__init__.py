@@ -1,0 +1,27 @@
+"""Hydroxide-precipitation workbench: pH setpoints, reagent dose, sludge and jar-test review for metal-bearing
+wastewater.
+
+Public API (``import workbench as wb``)::
+
+    wb.Water(metals_mg_l={...}, temperature_c=25.0, ph=..., sulfate_mg_l=..., ...)
+    wb.residual_curve(water, ph)        # dissolved metal vs pH, mg/L
+    wb.minimum_solubility(water)        # each metal's minimum-solubility pH and controlling solid
+    wb.speciate(water, ph)              # one equilibrium: species, solids, saturation indices
+
+Results are theoretical equilibrium: confirm by jar tests; the local permit and a licensed engineer govern.
+"""
+
+from workbench.errors import ConvergenceError, DataError, InputError
+from workbench.treatment.solubility import SpeciationResult, minimum_solubility, residual_curve, speciate
+from workbench.treatment.water import Water
+
+__all__ = [
+    "ConvergenceError",
+    "DataError",
+    "InputError",
+    "SpeciationResult",
+    "Water",
+    "minimum_solubility",
+    "residual_curve",
+    "speciate",
+]

@@ -1,0 +1,339 @@
+"""Speciation, residual-vs-pH curves and minimum-solubility pH of a water (the public core API).
+
+Each function takes a :class:`~workbench.treatment.water.Water` and returns pandas objects with units in the
+column names. The pH is held by a strong acid or base (fixed-pH mode); "residual" means dissolved metal
+(0.45 µm filtered) at equilibrium with whatever solids form.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from workbench.chemistry import database, solver, tableau
+from workbench.errors import InputError
+from workbench.treatment.water import METALS, Water, as_array
+
+SOLID_CHOICES = tableau.SOLID_CHOICES
+DAVIES_LIMIT_MOL_L = 0.5  # upper ionic strength of the Davies equation's usual range (Davies 1962)
+DEFAULT_PH_RANGE = (4.0, 13.5)
+
+
+@dataclass
+class SpeciationResult:
+    """One equilibrium of a water at one pH.
+
+    Attributes
+    ----------
+    ph, temperature_c, ionic_strength_mol_l : float
+    strong_base_eq_l : float
+        Strong base (positive) or acid (negative) that holds the pH: the charge-balance residual of the
+        analysis at this pH. [eq/L]
+    dissolved_mg_l : pandas.Series
+        Dissolved metal by metal key. [mg/L]
+    species : pandas.DataFrame
+        Index species; columns ``mol_l``, ``mg_l``, ``activity``, ``log_activity``, ``charge``.
+    solids : pandas.DataFrame
+        Solids formed; index solid; columns ``formula``, ``mol_l``, ``mg_l`` (dry mass).
+    saturation : pandas.DataFrame
+        Every candidate solid: ``saturation_index``, ``present``.
+    warnings : list of str
+        Where the model is stretched for this water.
+    """
+
+    ph: float
+    temperature_c: float
+    ionic_strength_mol_l: float
+    strong_base_eq_l: float
+    dissolved_mg_l: pd.Series
+    species: pd.DataFrame
+    solids: pd.DataFrame
+    saturation: pd.DataFrame
+    warnings: list[str] = field(default_factory=list)
+
+
+def equilibrium(water: Water, ph, *, solids: str = "fresh", activity: str = "davies"):
+    """Solve the water at the given pH values; returns (tableau, Equilibrium). Internal building block."""
+    if not isinstance(water, Water):
+        raise InputError("water", type(water).__name__, "a workbench Water is required")
+    if solids not in SOLID_CHOICES:
+        raise InputError("solids", solids, f"allowed {', '.join(SOLID_CHOICES)}")
+    if activity not in solver.ACTIVITY_MODELS:
+        raise InputError("activity", activity, f"allowed {', '.join(solver.ACTIVITY_MODELS)}")
+    ph = as_array(ph)
+    totals = water.totals()
+    tab = tableau.build(tuple(totals), water.temperature_c, solids)
+    t = np.zeros(len(tab.components))
+    for comp, v in totals.items():
+        t[tab.component(comp)] = v
+    return tab, solver.solve(tab, t, ph, activity=activity)
+
+
+def metal_mg_l(water: Water, tab, eq) -> dict[str, np.ndarray]:
+    """Dissolved metal per metal key over the points of ``eq``. [mg/L]"""
+    data = database.load()
+    diss = eq.dissolved()
+    return {
+        key: diss[:, tab.component(METALS[key])] * data.input_molar_mass[METALS[key]] * 1000.0
+        for key in water.metals_mg_l
+    }
+
+
+def residual_curve(water: Water, ph, *, solids: str = "fresh", activity: str = "davies") -> pd.DataFrame:
+    """Dissolved metal against pH.
+
+    Parameters
+    ----------
+    water : Water
+    ph : float or sequence of float
+        pH values, 0-14. [-]
+    solids : {"fresh", "aged", "none"}
+        Which solids may form (fresh precipitates by default; "aged" is a thermodynamic lower bound).
+    activity : {"davies", "ideal"}
+
+    Returns
+    -------
+    pandas.DataFrame
+        Index ``pH``; one column per metal key: dissolved metal. [mg/L]
+        ``attrs["warnings"]`` lists where the model is stretched.
+    """
+    phs = as_array(ph)
+    tab, eq = equilibrium(water, phs, solids=solids, activity=activity)
+    df = pd.DataFrame(metal_mg_l(water, tab, eq), index=pd.Index(phs, name="pH"))
+    df.attrs["units"] = "mg/L dissolved"
+    df.attrs["warnings"] = model_warnings(water, tab, eq)
+    return df
+
+
+def speciate(
+    water: Water, ph: float | None = None, *, solids: str = "fresh", activity: str = "davies"
+) -> SpeciationResult:
+    """One equilibrium: species, solids formed, saturation indices, ionic strength.
+
+    Parameters
+    ----------
+    water : Water
+    ph : float, optional
+        pH to hold; defaults to the water's measured pH. [-]
+    solids, activity : str
+        As for :func:`residual_curve`.
+    """
+    if ph is None:
+        if water.ph is None:
+            raise InputError("ph", None, "give a pH, or a Water with a measured pH")
+        ph = water.ph
+    phs = as_array(ph)
+    if phs.size != 1:
+        raise InputError("ph", ph, "speciate takes one pH; use residual_curve for many")
+    tab, eq = equilibrium(water, phs, solids=solids, activity=activity)
+    data = database.load()
+    sp_idx = tab.species_index
+    conc = eq.conc[0]
+    act = conc * 10.0 ** eq.log_gamma[0]
+    species = pd.DataFrame(
+        {
+            "mol_l": conc,
+            "mg_l": conc * data.molar_mass_g_mol[sp_idx] * 1000.0,
+            "activity": act,
+            "log_activity": np.log10(np.maximum(act, 1e-300)),
+            "charge": tab.z,
+        },
+        index=pd.Index(tab.species, name="species"),
+    )
+    present = eq.solid_amount[0] > 0
+    so_idx = tab.solid_index
+    solids_df = pd.DataFrame(
+        {
+            "formula": [data.rows[i - len(data.components)].formula for i in so_idx[present]],
+            "mol_l": eq.solid_amount[0][present],
+            "mg_l": eq.solid_amount[0][present] * data.molar_mass_g_mol[so_idx[present]] * 1000.0,
+        },
+        index=pd.Index([tab.solids[k] for k in np.flatnonzero(present)], name="solid"),
+    )
+    saturation = pd.DataFrame(
+        {"saturation_index": eq.saturation_index[0], "present": present},
+        index=pd.Index(tab.solids, name="solid"),
+    )
+    return SpeciationResult(
+        ph=float(phs[0]),
+        temperature_c=water.temperature_c,
+        ionic_strength_mol_l=float(eq.ionic_strength[0]),
+        strong_base_eq_l=float(eq.strong_base[0]),
+        dissolved_mg_l=pd.Series(
+            {k: float(v[0]) for k, v in metal_mg_l(water, tab, eq).items()}, dtype=float, name="mg_l"
+        ),
+        species=species,
+        solids=solids_df,
+        saturation=saturation,
+        warnings=model_warnings(water, tab, eq),
+    )
+
+
+def minimum_solubility(
+    water: Water,
+    *,
+    ph_range: tuple[float, float] = DEFAULT_PH_RANGE,
+    solids: str = "fresh",
+    activity: str = "davies",
+) -> pd.DataFrame:
+    """Each metal's minimum dissolved residual over pH in this water.
+
+    The residual curve is computed on a 0.05 pH grid over ``ph_range``, then refined to 0.005 pH around each
+    metal's lowest point. The window ``ph_low_2x``-``ph_high_2x`` is the pH range around the minimum where the
+    residual stays within twice the minimum: where the bottom is flat, it is more useful than the point.
+
+    Returns
+    -------
+    pandas.DataFrame
+        Index ``metal``; columns ``ph_min``, ``residual_mg_l``, ``solid`` (the solid that controls the metal at
+        ``ph_min``), ``ph_low_2x``, ``ph_high_2x``, ``influent_mg_l``, ``note``. A metal for which no solid
+        forms anywhere in the range has ``solid`` = "none", ``ph_min`` NaN and the influent as residual.
+    """
+    lo, hi = _check_range(ph_range)
+    grid = np.round(np.arange(lo, hi + 1e-9, 0.05), 6)
+    tab, eq = equilibrium(water, grid, solids=solids, activity=activity)
+    coarse = metal_mg_l(water, tab, eq)
+    metals = list(water.metals_mg_l)
+    # refine around each metal's lowest grid point, all metals in one solve
+    fine_ph, owner = [], []
+    for k, key in enumerate(metals):
+        i = int(np.argmin(coarse[key]))
+        pts = np.clip(grid[i] + np.arange(-0.05, 0.0501, 0.005), lo, hi)
+        fine_ph.append(pts)
+        owner.append(np.full(pts.size, k))
+    fine_ph = np.concatenate(fine_ph)
+    owner = np.concatenate(owner)
+    tab_f, eq_f = equilibrium(water, fine_ph, solids=solids, activity=activity)
+    fine = metal_mg_l(water, tab_f, eq_f)
+    data = database.load()
+    rows = []
+    for k, key in enumerate(metals):
+        influent = water.metals_mg_l[key]
+        sel = np.flatnonzero(owner == k)
+        best = sel[np.argmin(fine[key][sel])]
+        res_min = float(min(fine[key][best], influent))
+        comp = tab_f.component(METALS[key])
+        has = (tab_f.b[:, comp] > 0) & (eq_f.solid_amount[best] > 0)
+        if influent <= 0 or not has.any():
+            rows.append(
+                (key, np.nan, influent, "none", np.nan, np.nan, influent, _none_note(influent, lo, hi))
+            )
+            continue
+        amounts = np.where(has, eq_f.solid_amount[best] * tab_f.b[:, comp], 0.0)
+        solid = tab_f.solids[int(np.argmax(amounts))]
+        ph_min = round(float(fine_ph[best]), 3)
+        low, high = (round(v, 3) for v in _window(grid, coarse[key], 2.0 * res_min, ph_min))
+        note = ""
+        if ph_min <= lo + 1e-9 or ph_min >= hi - 1e-9:
+            note = f"lowest at the edge of the pH range searched ({lo:g}-{hi:g}): no minimum inside it"
+        rows.append((key, ph_min, res_min, solid, low, high, influent, note))
+    del data
+    df = pd.DataFrame(
+        rows,
+        columns=[
+            "metal",
+            "ph_min",
+            "residual_mg_l",
+            "solid",
+            "ph_low_2x",
+            "ph_high_2x",
+            "influent_mg_l",
+            "note",
+        ],
+    )
+    df = df.set_index("metal")
+    df.attrs["warnings"] = model_warnings(water, tab, eq)
+    return df
+
+
+def _none_note(influent: float, lo: float, hi: float) -> str:
+    if influent <= 0:
+        return "not in the influent"
+    return f"no solid forms between pH {lo:g} and {hi:g} at this concentration: the metal stays dissolved"
+
+
+def _window(grid: np.ndarray, curve: np.ndarray, level: float, ph_min: float) -> tuple[float, float]:
+    """pH interval around ph_min where curve <= level (edges interpolated in log residual)."""
+    below = curve <= level
+    i = int(np.argmin(np.abs(grid - ph_min)))
+    if not below[i]:
+        return ph_min, ph_min
+    left = i
+    while left > 0 and below[left - 1]:
+        left -= 1
+    right = i
+    while right < grid.size - 1 and below[right + 1]:
+        right += 1
+    return _cross(grid, curve, level, left, left - 1), _cross(grid, curve, level, right, right + 1)
+
+
+def _cross(grid, curve, level, inside, outside) -> float:
+    if outside < 0 or outside >= grid.size:
+        return float(grid[inside])
+    y0, y1 = np.log10(curve[inside]), np.log10(curve[outside])
+    frac = (np.log10(level) - y0) / (y1 - y0) if y1 != y0 else 0.0
+    return float(grid[inside] + frac * (grid[outside] - grid[inside]))
+
+
+def _check_range(ph_range) -> tuple[float, float]:
+    try:
+        lo, hi = (float(v) for v in ph_range)
+    except (TypeError, ValueError):
+        raise InputError("ph_range", ph_range, "a pair (low, high) of pH values is required") from None
+    if not (0.0 <= lo < hi <= 14.0) or hi - lo < 0.5:
+        raise InputError("ph_range", ph_range, "allowed 0 <= low < high <= 14, at least 0.5 apart")
+    return lo, hi
+
+
+def model_warnings(water: Water, tab, eq) -> list[str]:
+    """Where the model is stretched for this water (shown beside every result)."""
+    data = database.load()
+    out = []
+    imax = float(eq.ionic_strength.max())
+    if imax > DAVIES_LIMIT_MOL_L:
+        out.append(
+            f"Ionic strength reaches {imax:.2f} mol/L, beyond the Davies equation's range (about 0.5 mol/L): "
+            "activity corrections, and so the residuals, are approximate."
+        )
+    t = eq.totals[0]
+    frac = eq.conc[:, :, None] * np.abs(tab.a)[None] / np.where(t > 0, t, np.inf)[None, None, :]
+    significant = frac[:, :, 1:].max(axis=(0, 2)) > 0.01
+    rows = data.rows
+    n_comp = len(data.components)
+    memory_sp = [
+        tab.species[i]
+        for i, gi in enumerate(tab.species_index)
+        if gi >= n_comp and rows[gi - n_comp].quality == "memory" and significant[i]
+    ]
+    memory_so = [
+        tab.solids[k]
+        for k, gi in enumerate(tab.solid_index)
+        if rows[gi - n_comp].quality == "memory" and (eq.solid_amount[:, k] > 0).any()
+    ]
+    if memory_sp or memory_so:
+        out.append(
+            "Constants recalled without a readable source (tagged 'memory' in data/thermo) matter here: "
+            + ", ".join(memory_sp + memory_so)
+            + ". Treat the affected metals' residuals as indicative."
+        )
+    if abs(water.temperature_c - 25.0) > 2.0:
+        used = set(tab.species_index) | set(tab.solid_index)
+        missing = [r.name for r in data.rows_without_enthalpy() if data.index(r.name) in used]
+        if missing:
+            out.append(
+                f"{len(missing)} constants in this system have no published reaction enthalpy and are held at their "
+                f"25 °C values at {water.temperature_c:g} °C (e.g. {', '.join(missing[:5])})."
+            )
+    if "Fe(II)" in water.metals_mg_l:
+        out.append(
+            "Fe(II) is treated as staying ferrous; in an aerated tank it oxidises to Fe(III), "
+            "which precipitates at far lower pH."
+        )
+    if "Mn" in water.metals_mg_l:
+        out.append(
+            "Mn(II) oxidation to Mn(III/IV) oxides (which lowers residual Mn in aerated lime treatment) "
+            "is not modelled."
+        )
+    return out
