@@ -33,9 +33,13 @@ def test_every_row_names_a_source_that_resolves(path):
         return
     assert "source" in rows[0], f"{path.name} has no source column"
     for line, r in enumerate(rows, start=2):
-        assert r["source"].strip() in keys, f"{path.name} row {line}: source {r['source']!r} not in references.csv"
+        assert r["source"].strip() in keys, (
+            f"{path.name} row {line}: source {r['source']!r} not in references.csv"
+        )
         if r.get("read_via", "").strip():
-            assert r["read_via"].strip() in keys, f"{path.name} row {line}: read_via {r['read_via']!r} unknown"
+            assert r["read_via"].strip() in keys, (
+                f"{path.name} row {line}: read_via {r['read_via']!r} unknown"
+            )
 
 
 def test_quality_tags_and_memory_rows_are_marked():
@@ -81,7 +85,7 @@ def test_species_charge_from_components_matches_its_name():
         if row.table != "aqueous":
             continue
         name = row.name
-        if name.endswith("(aq)") or not name[-1] in "+-":
+        if name.endswith("(aq)") or name[-1] not in "+-":
             expected = 0
         else:
             sign = 1 if name[-1] == "+" else -1
@@ -150,7 +154,20 @@ def test_solid_forms_cover_each_metal():
     # every metal has at least one solid for the fresh choice and one for the aged choice
     data = database.load()
     forms = np.array(data.forms, dtype=object)
-    for comp in ("Cu^2+", "Ni^2+", "Zn^2+", "Cd^2+", "Pb^2+", "Cr^3+", "Fe^3+", "Fe^2+", "Al^3+", "Mn^2+", "Co^2+", "Ag+"):
+    for comp in (
+        "Cu^2+",
+        "Ni^2+",
+        "Zn^2+",
+        "Cd^2+",
+        "Pb^2+",
+        "Cr^3+",
+        "Fe^3+",
+        "Fe^2+",
+        "Al^3+",
+        "Mn^2+",
+        "Co^2+",
+        "Ag+",
+    ):
         j = data.components.index(comp)
         has = data.is_solid & (data.composition[:, j] > 0)
         assert (has & np.isin(forms, ("fresh", "both"))).any(), comp

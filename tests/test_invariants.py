@@ -7,20 +7,36 @@ import workbench as wb
 from workbench.scenario import demo_water
 from workbench.treatment.solubility import equilibrium
 
-PH = np.round(np.arange(2.0, 14.0001, 0.1), 4)
+PH = np.round(np.arange(2.0, 13.5001, 0.1), 4)
 
 WATERS = {
     "demo": demo_water(),
     "chelated": wb.Water(
-        metals_mg_l={"Cu": 30, "Ni": 20, "Zn": 10}, ph=4.0, sulfate_mg_l=400, sodium_mg_l=200,
-        edta_mg_l=80, citrate_mg_l=50, ammonia_mg_l_n=40, calcium_mg_l=40, temperature_c=35,
+        metals_mg_l={"Cu": 30, "Ni": 20, "Zn": 10},
+        ph=4.0,
+        sulfate_mg_l=400,
+        sodium_mg_l=200,
+        edta_mg_l=80,
+        citrate_mg_l=50,
+        ammonia_mg_l_n=40,
+        calcium_mg_l=40,
+        temperature_c=35,
     ),
     "trace beside iron": wb.Water(
-        metals_mg_l={"Ag": 0.001, "Fe": 2000, "Fe(II)": 50, "Mn": 5, "Co": 2}, ph=1.5, sulfate_mg_l=6000,
-        chloride_mg_l=100, calcium_mg_l=300, magnesium_mg_l=100, temperature_c=10,
+        metals_mg_l={"Ag": 0.001, "Fe": 2000, "Fe(II)": 50, "Mn": 5, "Co": 2},
+        ph=1.5,
+        sulfate_mg_l=6000,
+        chloride_mg_l=100,
+        calcium_mg_l=300,
+        magnesium_mg_l=100,
+        temperature_c=10,
     ),
     "fluoride pickle": wb.Water(
-        metals_mg_l={"Al": 50, "Fe": 100, "Ni": 5}, ph=2.5, fluoride_mg_l=300, sulfate_mg_l=2000, calcium_mg_l=200,
+        metals_mg_l={"Al": 50, "Fe": 100, "Ni": 5},
+        ph=2.5,
+        fluoride_mg_l=300,
+        sulfate_mg_l=2000,
+        calcium_mg_l=200,
     ),
 }
 
@@ -95,3 +111,13 @@ def test_more_soluble_fresh_solid_gives_higher_residual():
     aged = wb.residual_curve(water, [6.5, 9.0, 10.0], solids="aged")
     assert (aged.to_numpy() <= fresh.to_numpy() * (1 + 1e-9)).all()
     assert (aged.loc[9.0] < fresh.loc[9.0]).all()
+
+
+def test_too_concentrated_is_refused_not_computed():
+    # beyond the Davies equation's range the activity coefficients are meaningless: a clear error, not a number
+    water = wb.Water(metals_mg_l={"Zn": 10.0}, magnesium_mg_l=20000, chloride_mg_l=20000)
+    with pytest.raises(wb.ModelRangeError, match="ionic strength"):
+        wb.residual_curve(water, [7.0])
+    # a dilute water can still be held at pH 14 (I ~ 1.05 mol/L from the base), with a warning
+    curve = wb.residual_curve(WATERS["demo"], [13.0, 14.0])
+    assert any("Davies" in w for w in curve.attrs["warnings"])

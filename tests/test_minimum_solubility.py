@@ -26,7 +26,9 @@ RANGES = {
 @pytest.mark.parametrize("metal", sorted(RANGES))
 def test_minimum_ph_in_published_range(metal):
     lo, hi, why = RANGES[metal]
-    water = wb.Water(metals_mg_l={metal: 60.0 if metal == "Pb" else 10.0}, ph=4.0, sodium_mg_l=460, sulfate_mg_l=960)
+    water = wb.Water(
+        metals_mg_l={metal: 60.0 if metal == "Pb" else 10.0}, ph=4.0, sodium_mg_l=460, sulfate_mg_l=960
+    )
     table = wb.minimum_solubility(water)
     ph_min = table.loc[metal, "ph_min"]
     assert lo <= ph_min <= hi, f"{metal}: {ph_min} outside {lo}-{hi} ({why})"
@@ -58,7 +60,9 @@ def test_lead_needs_carbonate():
     # Powell et al. 2009: the neutral Pb(OH)2 species keeps several mg/L of lead dissolved over hydroxide alone;
     # cerussite (PbCO3) brings it lower when carbonate is present
     no_carb = wb.Water(metals_mg_l={"Pb": 5.0}, ph=4.0, sodium_mg_l=230, chloride_mg_l=355)
-    carb = wb.Water(metals_mg_l={"Pb": 5.0}, ph=8.3, sodium_mg_l=230, chloride_mg_l=355, alkalinity_mg_l_caco3=200)
+    carb = wb.Water(
+        metals_mg_l={"Pb": 5.0}, ph=8.3, sodium_mg_l=230, chloride_mg_l=355, alkalinity_mg_l_caco3=200
+    )
     a = wb.minimum_solubility(no_carb).loc["Pb"]
     b = wb.minimum_solubility(carb).loc["Pb"]
     assert a["solid"] == "none" and a["residual_mg_l"] == 5.0

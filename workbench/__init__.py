@@ -11,7 +11,7 @@ Public API (``import workbench as wb``)::
 Results are theoretical equilibrium: confirm by jar tests; the local permit and a licensed engineer govern.
 """
 
-from workbench.errors import ConvergenceError, DataError, InputError
+from workbench.errors import ConvergenceError, DataError, InputError, ModelRangeError
 from workbench.treatment.solubility import SpeciationResult, minimum_solubility, residual_curve, speciate
 from workbench.treatment.water import Water
 
@@ -19,6 +19,7 @@ __all__ = [
     "ConvergenceError",
     "DataError",
     "InputError",
+    "ModelRangeError",
     "SpeciationResult",
     "Water",
     "minimum_solubility",

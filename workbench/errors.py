@@ -24,3 +24,8 @@ class DataError(ValueError):
 
 class ConvergenceError(ArithmeticError):
     """The equilibrium solver did not reach a verified solution (names the points that failed)."""
+
+
+class ModelRangeError(InputError):
+    """The water lies outside the range where the chemistry model holds (e.g. ionic strength beyond the
+    activity model's limit); names the quantity, its value and the allowed range."""

@@ -1,24 +1,30 @@
 """Equilibrium solver: Newton-Raphson in log10 concentrations with an active set of solids.
 
-Unknowns per point: the log10 free concentration X_j of every component (H+ included) and the amount n_s of every
-candidate solid (mol/L; zero and inert while the solid is absent). Equations per point:
+At fixed activity coefficients, chemical equilibrium is the minimum of a convex function of the log10 free
+concentrations X of the components (the dual of the Gibbs energy minimisation; e.g. Smith & Missen 1982,
+*Chemical Reaction Equilibrium Analysis*, ch. 6):
 
-* mass balance of each component except H+, scaled by its total:
-  ``(sum_i a_ij c_i + sum_s b_sj n_s - T_j) / T_j = 0``;
-* for H+ either a fixed pH (``X_H + log10 gamma_H = -pH``, fixed-pH mode) or electroneutrality
-  ``sum_i z_i c_i = 0`` (charge-balance mode, used when a dose sets the pH);
-* for each solid present, saturation ``SI_s = log_ks_s + sum_j b_sj log10 a_j = 0``; for each absent solid ``n_s = 0``.
+    Phi(X) = sum_i c_i(X) / ln10 - sum_j T_j X_j,   log10 c_i = log_k_i + sum_j a_ij (X_j + lg_j) - lg_i,
 
-Species concentrations follow from the mass-action law,
-``log10 c_i = log_k_i + sum_j a_ij (X_j + log10 gamma_j) - log10 gamma_i``, with Davies activity coefficients
-recomputed from the ionic strength at every iteration. In fixed-pH mode the strong acid or base that holds the pH
-is counted in the ionic strength as a monovalent counter-ion.
+subject to the linear constraints SI_s(X) = log_ks_s + sum_j b_sj (X_j + lg_j) <= 0 for every candidate solid.
+The stationarity conditions are the mass balances, with the solid amounts n_s as the Lagrange multipliers:
+``sum_i a_ij c_i + sum_s b_sj n_s = T_j``; complementarity says a solid is either present and saturated
+(SI = 0, n > 0) or absent and not supersaturated (SI <= 0, n = 0).
 
-All points are solved at once (numpy batches, no Python loop over points). The active set changes between Newton
-passes: solids whose amount is negative leave, and, per point, the most supersaturated solids enter (at most one per
-component per pass). The result is verified before it is returned: mass balance closes, absent solids are not
-supersaturated, present solids are saturated and have positive amounts, and nothing is NaN; otherwise
-:class:`~workbench.errors.ConvergenceError` names the points that failed.
+* Hydrogen ion: in fixed-pH mode X_H is held (``X_H + lg_H = -pH``) and the strong acid or base that holds it is
+  the charge-balance residual; in charge-balance mode X_H is free and its "total" is fixed by electroneutrality,
+  ``T_H = -sum_{j != H} z_j T_j`` (solids are neutral, so this is the proton condition).
+* Solids (active set): Newton steps solve the KKT system of the equality-constrained problem for the present
+  solids, from a point where their constraints hold exactly (a least-norm projection restores them whenever the
+  set or the activity coefficients change); because the constraints are linear, every step keeps them, and a
+  backtracking line search on Phi makes each step a descent. After each pass, solids with negative amounts leave
+  and, per point, the most supersaturated solids enter (at most one per component per pass).
+* Activity: Davies coefficients at the ionic strength I; I is iterated outside the Newton passes (secant on
+  log10 I), the counter-ion of the acid/base that holds the pH counted as monovalent in fixed-pH mode.
+
+All points are solved at once (numpy batches, no Python loop over points). The result is verified before it is
+returned: mass balance closes to 1e-10, absent solids are not supersaturated, present solids are saturated with
+positive amounts, and nothing is NaN; otherwise :class:`~workbench.errors.ConvergenceError` names the points.
 """
 
 from __future__ import annotations
@@ -29,17 +35,21 @@ import numpy as np
 
 from workbench.chemistry import water_properties as wp
 from workbench.chemistry.tableau import Tableau
-from workbench.errors import ConvergenceError
+from workbench.errors import ConvergenceError, ModelRangeError
 
 LN10 = np.log(10.0)
 ABSENT = -400.0  # log10 concentration used for a component whose total is zero
 ACTIVITY_MODELS = ("davies", "ideal")
-TOL_RESIDUAL = 1e-12  # scaled residual at which a Newton pass has converged
+TOL_RESIDUAL = 1e-12  # scaled mass-balance residual at which a Newton pass has converged
+TOL_STEP = 1e-10  # largest change of X at which a Newton pass has converged [log10 units]
+TOL_STALL = 1e-13  # change of X below which a Newton pass is at rounding level [log10 units]
+TOL_IONIC = 1e-10  # |log10(I computed / I used)| at which the ionic strength has converged
 TOL_SATURATION = 1e-9  # SI above which an absent solid is taken as supersaturated
 TOL_MASS = 1e-10  # verified relative mass-balance error
 MAX_STEP_LOG = 2.0  # largest change of any species' log10 concentration in one Newton step
-MAX_ITER = 200
-MAX_ROUNDS = 60
+MAX_IONIC_STRENGTH = 1.2  # mol/L; beyond it the Davies equation no longer gives usable activity coefficients
+MAX_ITER = 100  # Newton iterations per pass
+MAX_ROUNDS = 200  # passes (active-set and ionic-strength updates)
 
 
 @dataclass
@@ -122,21 +132,24 @@ def solve(
         raise ValueError(f"activity: got {activity!r}; allowed {ACTIVITY_MODELS}")
     fixed = ph is not None
     totals = np.atleast_2d(np.asarray(totals, dtype=float))
-    n_pts = totals.shape[0] if not fixed else max(totals.shape[0], np.size(ph))
-    if fixed:
-        ph_arr = np.broadcast_to(np.asarray(ph, dtype=float), (n_pts,)).copy()
+    n_pts = max(totals.shape[0], np.size(ph)) if fixed else totals.shape[0]
+    ph_arr = np.broadcast_to(np.asarray(ph, dtype=float), (n_pts,)).copy() if fixed else None
     totals = np.broadcast_to(totals, (n_pts, len(tab.components))).copy()
-    state = _State(tab, totals, ph_arr if fixed else None, activity)
+    state = _State(tab, totals, ph_arr, activity)
     state.initial_guess(np.broadcast_to(np.asarray(ph_guess, float), (n_pts,)))
     todo = np.arange(n_pts)
     for _ in range(MAX_ROUNDS):
+        state.restore(todo)
         state.newton(todo)
         changed = state.update_active_set(todo)
-        todo = todo[changed]
+        moved = np.zeros_like(changed)
+        moved[~changed] = state.update_ionic_strength(todo[~changed])
+        state.check_range(todo)
+        todo = todo[moved | changed]
         if todo.size == 0:
             break
     else:
-        state.fail(todo, "the set of solids did not settle")
+        state.fail(todo, "the solids present and the ionic strength did not settle")
     return state.finish()
 
 
@@ -145,7 +158,6 @@ class _State:
 
     def __init__(self, tab: Tableau, totals: np.ndarray, ph: np.ndarray | None, activity: str):
         self.tab = tab
-        self.t = totals
         self.ph = ph
         self.ideal = activity == "ideal"
         n_pts, m = totals.shape
@@ -153,12 +165,19 @@ class _State:
         self.m, self.s = m, s
         self.present = totals > 0
         self.present[:, 0] = True
+        self.t = totals.copy()
+        if ph is None:  # proton condition from electroneutrality (solids are neutral)
+            self.t[:, 0] = -(totals[:, 1:] @ _charges(tab)[1:])
+        else:
+            self.t[:, 0] = 0.0
+        self.free = self.present.copy()  # components whose X is an unknown
+        self.free[:, 0] = ph is None
         self.x = np.zeros((n_pts, m))
         self.n = np.zeros((n_pts, s))
         self.active = np.zeros((n_pts, s), bool)
-        self.ionic = np.zeros(n_pts)
-        self.comp_species = np.array([tab.species.index(c) for c in tab.components])
-        self.abs_z = np.abs(tab.z)
+        self.ionic = np.full(n_pts, 1e-7)
+        self.bracket = np.full((5, n_pts), np.nan)  # root search on log10 I (see update_ionic_strength)
+        self.comp_species = _component_rows(tab)
         # a solid can only form at a point where all its components are present
         self.possible = ~((np.abs(tab.b[None, :, 1:]) > 0) & ~self.present[:, None, 1:]).any(axis=2)
         self.weight = np.maximum(1.0, np.abs(tab.b[:, 1:]).sum(axis=1))
@@ -170,23 +189,19 @@ class _State:
             return np.zeros((idx.size, len(self.tab.species)))
         return wp.davies_log_gamma(self.tab.z[None, :], self.ionic[idx, None], self.tab.davies_a)
 
-    def _dlg_di(self, idx):
-        """d log10 gamma / dI of the species (Davies)."""
-        if self.ideal:
-            return np.zeros((idx.size, len(self.tab.species)))
-        root = np.sqrt(np.maximum(self.ionic[idx], 1e-14))
-        dd = 1.0 / (2.0 * root * (1.0 + root) ** 2) - 0.3
-        return -self.tab.davies_a * self.tab.z[None, :] ** 2 * dd[:, None]
-
-    def _conc(self, idx, lg=None):
+    def _logc(self, idx, x, lg):
         tab = self.tab
-        lg = self._lg(idx) if lg is None else lg
-        logc = tab.log_k + (self.x[idx] + lg[:, self.comp_species]) @ tab.a.T - lg
-        return np.power(10.0, np.minimum(logc, 300.0))
+        return tab.log_k + (x + lg[:, self.comp_species]) @ tab.a.T - lg
 
-    def _si(self, idx, lg=None):
+    def _conc(self, idx, lg=None, x=None):
         lg = self._lg(idx) if lg is None else lg
-        return self.tab.log_ks + (self.x[idx] + lg[:, self.comp_species]) @ self.tab.b.T
+        x = self.x[idx] if x is None else x
+        return np.power(10.0, np.minimum(self._logc(idx, x, lg), 300.0))
+
+    def _si(self, idx, lg=None, x=None):
+        lg = self._lg(idx) if lg is None else lg
+        x = self.x[idx] if x is None else x
+        return self.tab.log_ks + (x + lg[:, self.comp_species]) @ self.tab.b.T
 
     def _ionic_of(self, c):
         tab = self.tab
@@ -194,6 +209,17 @@ class _State:
         if self.ph is not None:
             ionic = ionic + 0.5 * np.abs(c @ tab.z)  # counter-ion of the acid/base holding the pH
         return ionic
+
+    def _phi(self, idx, x, lg):
+        """The convex objective (per point)."""
+        c = np.power(10.0, np.minimum(self._logc(idx, x, lg), 300.0))
+        xt = np.where(self.free[idx], x, 0.0)
+        return c.sum(axis=1) / LN10 - (self.t[idx] * xt).sum(axis=1)
+
+    def _hold_ph(self, idx, lg=None):
+        if self.ph is not None:
+            lg = self._lg(idx) if lg is None else lg
+            self.x[idx, 0] = -self.ph[idx] - lg[:, self.comp_species[0]]
 
     # ------------------------------------------------------------------ start
     def initial_guess(self, ph_guess):
@@ -215,132 +241,134 @@ class _State:
             self.x[:, 1:] += np.clip(step, -50.0, 50.0)
             if np.abs(step).max(initial=0.0) < 1e-3:
                 break
-        if not self.ideal:
-            idx = np.arange(self.t.shape[0])
-            self.ionic = self._ionic_of(self._conc(idx))
+        if not self.ideal:  # free-ion estimate from the totals, H+ and OH-; refined by the outer iteration
+            z2 = _charges(tab)[1:] ** 2
+            h = 10.0 ** self.x[:, 0]
+            self.ionic = np.clip(0.5 * (self.t[:, 1:] @ z2 + h + 1e-14 / h), 1e-7, 3.0)
+        self._hold_ph(np.arange(self.t.shape[0]))
+
+    def restore(self, idx):
+        """Least-norm change of X that makes every present solid exactly saturated (constraints are linear)."""
+        self._hold_ph(idx)
+        act = self.active[idx]
+        if not act.any():
+            return
+        rows = np.flatnonzero(act.any(axis=1))
+        sub = idx[rows]
+        act = act[rows]
+        si = np.where(act, self._si(sub), 0.0)
+        bf = np.where(act[:, :, None] & self.free[sub][:, None, :], self.tab.b[None], 0.0)  # (k, s, m)
+        gram = bf @ bf.transpose(0, 2, 1)
+        gram[:, np.arange(self.s), np.arange(self.s)] += np.where(act, 0.0, 1.0)
+        y = _solve_batch(gram, si)
+        self.x[sub] -= np.einsum("psm,ps->pm", bf, y)
 
     # ------------------------------------------------------------------ Newton passes
-    def _residual(self, idx):
-        """Scaled residuals only (for the line search)."""
-        return self._residual_jacobian(idx, jacobian=False)[0]
-
-    def _residual_jacobian(self, idx, jacobian=True):
-        """Scaled residuals and Jacobian; unknowns are [X (m), n (s), I]."""
+    def _system(self, idx, lg):
+        """KKT matrix and right-hand side for [dX (m), n (s)], mass rows scaled."""
         tab, m, s = self.tab, self.m, self.s
-        k = idx.size
-        lg = self._lg(idx)
-        dlg = self._dlg_di(idx)
         c = self._conc(idx, lg)
-        g = dlg[:, self.comp_species] @ tab.a.T - dlg  # d log10 c_i / dI
-        t = np.where(self.present[idx], self.t[idx], 1.0)
+        free = self.free[idx]
         act = self.active[idx]
-        n = np.where(act, self.n[idx], 0.0)
-        u = m + s + 1
-        f = np.zeros((k, u))
-        tot = c @ tab.a + n @ tab.b
-        f[:, 1:m] = (tot[:, 1:] - t[:, 1:]) / t[:, 1:]
-        h = self.comp_species[0]
-        if self.ph is not None:
-            f[:, 0] = self.x[idx, 0] + lg[:, h] + self.ph[idx]
-        else:
-            f[:, 0] = (c @ tab.z) / (c @ self.abs_z)
-        si = self._si(idx, lg)
-        f[:, m : m + s] = np.where(act, si, self.n[idx])
-        if not self.ideal:
-            ionic = self._ionic_of(c)
-            f[:, -1] = (ionic - self.ionic[idx]) / np.maximum(ionic, 1e-12)
-        absent = ~self.present[idx]
-        f[:, :m][absent] = 0.0
-        if not jacobian:
-            return f, None
-        jac = np.zeros((k, u, u))
-        ca = c[:, :, None] * tab.a[None, :, :]  # (k, n, m)
-        cg = LN10 * c * g  # d c_i / dI
-        # mass balances
-        jac[:, 1:m, :m] = LN10 * np.einsum("ij,pik->pjk", tab.a[:, 1:], ca) / t[:, 1:, None]
-        jac[:, 1:m, m : m + s] = (tab.b[:, 1:].T[None, :, :] * act[:, None, :]) / t[:, 1:, None]
-        jac[:, 1:m, -1] = (cg @ tab.a[:, 1:]) / t[:, 1:]
-        # H+: fixed pH or electroneutrality
-        if self.ph is not None:
-            jac[:, 0, 0] = 1.0
-            jac[:, 0, -1] = dlg[:, h]
-        else:
-            scale = c @ self.abs_z
-            jac[:, 0, :m] = LN10 * np.einsum("i,pik->pk", tab.z, ca) / scale[:, None]
-            jac[:, 0, -1] = (cg @ tab.z) / scale
-        # absent components keep their value
-        if absent.any():
-            rows = np.nonzero(absent)
-            jac[rows[0], rows[1], :] = 0.0
-            jac[rows[0], rows[1], rows[1]] = 1.0
-        # solids
-        jac[:, m : m + s, :m] = np.where(act[:, :, None], tab.b[None, :, :], 0.0)
-        jac[:, m : m + s, -1] = np.where(act, dlg[:, self.comp_species] @ tab.b.T, 0.0)
+        k = idx.size
+        dissolved = c @ tab.a
+        scale = 1.0 / np.maximum(np.maximum(np.abs(self.t[idx]), c @ np.abs(tab.a)), 1e-300)
+        kkt = np.zeros((k, m + s, m + s))
+        rhs = np.zeros((k, m + s))
+        ca = c[:, :, None] * tab.a[None, :, :]
+        hess = LN10 * np.einsum("ij,pik->pjk", tab.a, ca)
+        kkt[:, :m, :m] = hess * scale[:, :, None]
+        kkt[:, :m, m:] = np.where(act[:, None, :], tab.b.T[None], 0.0) * scale[:, :, None]
+        rhs[:, :m] = (self.t[idx] - dissolved) * scale
+        # components that are not unknowns keep their value
+        fixed_rows = np.nonzero(~free)
+        kkt[fixed_rows[0], fixed_rows[1], :] = 0.0
+        kkt[fixed_rows[0], fixed_rows[1], fixed_rows[1]] = 1.0
+        rhs[:, :m][~free] = 0.0
+        # present solids: b . dX = -SI (zero after restore); absent: n = 0
+        kkt[:, m:, :m] = np.where(act[:, :, None] & free[:, None, :], tab.b[None], 0.0)
+        rhs[:, m:] = np.where(act, -self._si(idx, lg), 0.0)
         diag = np.arange(s)
-        jac[:, m + diag, m + diag] = np.where(act, 0.0, 1.0)
-        # ionic strength
-        if self.ideal:
-            jac[:, -1, -1] = 1.0
-        else:
-            z2 = 0.5 * tab.z**2
-            ionic = c @ z2
-            d_ionic = LN10 * np.einsum("i,pik->pk", z2, ca)
-            d_ionic_di = cg @ z2
-            if self.ph is not None:
-                charge = c @ tab.z
-                sign = np.sign(charge)[:, None]
-                ionic = ionic + 0.5 * np.abs(charge)
-                d_ionic = d_ionic + 0.5 * sign * LN10 * np.einsum("i,pik->pk", tab.z, ca)
-                d_ionic_di = d_ionic_di + 0.5 * sign[:, 0] * (cg @ tab.z)
-            iscale = np.maximum(ionic, 1e-12)
-            jac[:, -1, :m] = d_ionic / iscale[:, None]
-            jac[:, -1, -1] = (d_ionic_di - 1.0) / iscale
-        return f, jac
+        kkt[:, m + diag, m + diag] = np.where(act, 0.0, 1.0)
+        kkt[:, :m, m:] *= free[:, :, None]
+        return kkt, rhs, c, scale
 
     def newton(self, idx):
-        """Damped Newton passes with a backtracking line search on the residual norm."""
-        m, s = self.m, self.s
+        """Newton passes at fixed activity coefficients, with a backtracking line search on Phi."""
+        m = self.m
         pending = idx.copy()
         for _ in range(MAX_ITER):
             if pending.size == 0:
                 return
-            f, jac = self._residual_jacobian(pending)
-            norm0 = np.abs(f).max(axis=1)
-            done = norm0 < TOL_RESIDUAL
-            if done.all():
-                return
-            pending, f, jac, norm0 = pending[~done], f[~done], jac[~done], norm0[~done]
-            step = _solve_batch(jac, -f)
-            dx = step[:, :m]
-            dlogc = np.abs(dx @ self.tab.a.T).max(axis=1)
-            lam = np.minimum(1.0, MAX_STEP_LOG / np.maximum(dlogc, 1e-300))
-            di = step[:, -1]
-            ionic = self.ionic[pending]
-            low = ionic + lam * di < 0.1 * ionic
-            lam = np.where(low, np.minimum(lam, 0.9 * ionic / np.maximum(-di, 1e-300)), lam)
-            x0, n0 = self.x[pending].copy(), self.n[pending].copy()
-            trial = np.ones(pending.size, bool)
-            for _ls in range(12):
-                sub = pending[trial]
-                self.x[sub] = x0[trial] + lam[trial, None] * dx[trial]
-                self.n[sub] = n0[trial] + lam[trial, None] * step[trial, m : m + s]
-                if not self.ideal:
-                    self.ionic[sub] = ionic[trial] + lam[trial] * di[trial]
-                norm = np.abs(self._residual(sub)).max(axis=1)
-                ok = np.isfinite(norm) & (norm <= (1.0 - 1e-4 * lam[trial]) * norm0[trial])
-                still = np.flatnonzero(trial)[~ok]
-                if still.size == 0:
+            lg = self._lg(pending)
+            kkt, rhs, c, scale = self._system(pending, lg)
+            sol = _solve_batch(kkt, rhs)
+            dx, n_new = sol[:, :m], sol[:, m:]
+            self.n[pending] = np.where(self.active[pending], n_new, 0.0)
+            residual = np.abs(rhs[:, :m] - np.einsum("pjk,pk->pj", kkt[:, :m, m:], n_new)).max(axis=1)
+            step_size = np.abs(dx).max(axis=1)
+            # converged, or stalled at rounding level: the latter happens when the present solids cannot all
+            # stay (huge multipliers of mixed sign); the active-set update then drops the negative ones, and the
+            # final verification catches anything else
+            done = ((residual < TOL_RESIDUAL) & (step_size < TOL_STEP)) | (step_size < TOL_STALL)
+            lam = np.minimum(1.0, MAX_STEP_LOG / np.maximum(np.abs(dx @ self.tab.a.T).max(axis=1), 1e-300))
+            x0 = self.x[pending]
+            phi0 = self._phi(pending, x0, lg)
+            slope = np.einsum(
+                "pj,pj->p", np.where(self.free[pending], c @ self.tab.a - self.t[pending], 0.0), dx
+            )
+            trial = ~done
+            for _ls in range(40):
+                if not trial.any():
                     break
-                trial[:] = False
-                trial[still] = True
-                lam[still] *= 0.5
+                xt = x0[trial] + lam[trial, None] * dx[trial]
+                phi = self._phi(pending[trial], xt, lg[trial])
+                ok = np.isfinite(phi) & (
+                    phi
+                    <= phi0[trial]
+                    + 1e-4 * lam[trial] * np.minimum(slope[trial], 0.0)
+                    + 1e-14 * np.abs(phi0[trial])
+                )
+                rows = np.flatnonzero(trial)
+                self.x[pending[rows[ok]]] = xt[ok]
+                trial[rows[ok]] = False
+                lam[rows[~ok]] *= 0.5
+            pending = pending[~done]
         self.fail(pending, "Newton iterations did not converge")
+
+    def update_ionic_strength(self, idx) -> np.ndarray:
+        """One step of a bracketed root search on F(u) = log10 I(computed) - u, u = log10 I (the ionic strength
+        used for the activity coefficients). F is continuous (the equilibrium is, across solids appearing), so
+        once a sign change is bracketed, false position with bisection safeguards converges. Returns the points
+        whose ionic strength moved."""
+        if self.ideal:
+            return np.zeros(idx.size, bool)
+        c = self._conc(idx)
+        u = np.log10(self.ionic[idx])
+        r = np.log10(np.maximum(self._ionic_of(c), 1e-300)) - u
+        moved = np.abs(r) > TOL_IONIC
+        br = self.bracket[:, idx]  # rows: u_low, f_low (>0), u_high, f_high (<0), last side updated
+        pos = r > 0
+        same_side = br[4] == np.where(pos, 1.0, -1.0)
+        br[0] = np.where(pos, u, br[0])
+        br[1] = np.where(pos, r, br[1])
+        br[2] = np.where(pos, br[2], u)
+        br[3] = np.where(pos, br[3], r)
+        br[4] = np.where(pos, 1.0, -1.0)
+        both = np.isfinite(br[1]) & np.isfinite(br[3])
+        with np.errstate(divide="ignore", invalid="ignore"):
+            false_pos = br[0] - br[1] * (br[2] - br[0]) / (br[3] - br[1])
+        middle = 0.5 * (br[0] + br[2])
+        bracketed = np.where(same_side | ~np.isfinite(false_pos), middle, false_pos)
+        new = np.where(both, bracketed, u + np.clip(r, -1.0, 1.0))
+        self.bracket[:, idx] = br
+        self.ionic[idx] = np.where(moved, 10.0**new, self.ionic[idx])
+        return moved
 
     def update_active_set(self, idx) -> np.ndarray:
         """Drop solids with negative amounts; add supersaturated ones. Returns which points changed."""
         act = self.active[idx]
-        n = self.n[idx]
-        drop = act & (n < 0.0)
+        drop = act & (self.n[idx] < 0.0)
         changed = drop.any(axis=1)
         act = act & ~drop
         si = self._si(idx)
@@ -351,33 +379,61 @@ class _State:
             claimed = np.zeros((idx.size, self.m - 1), bool)
             uses = np.abs(self.tab.b[:, 1:]) > 0  # (s, m-1)
             rows = np.arange(idx.size)
-            added = np.zeros_like(act)
             for r in range(self.s):
                 k = order[:, r]
                 ok = cand[rows, k] & ~(claimed & uses[k]).any(axis=1)
                 act[rows[ok], k[ok]] = True
-                added[rows[ok], k[ok]] = True
                 claimed[ok] |= uses[k[ok]]
                 changed |= ok
+            self._keep_independent(idx, act, cand & act)
         self.active[idx] = act
-        self.n[idx] = np.where(act, np.maximum(self.n[idx], 0.0), 0.0)
-        if cand.any():
-            self._warm_start(idx, added, si)
+        self.n[idx] = np.where(act, self.n[idx], 0.0)
         return changed
 
-    def _warm_start(self, idx, added, si):
-        """Start each newly added solid at saturation: lower its limiting component's free concentration by
-        SI / b and give the solid what that removes from solution."""
-        tab = self.tab
-        b = np.clip(tab.b[:, 1:], 0.0, None)
-        p, k = np.nonzero(added)
-        ratio = np.where(b[k] > 0, self.t[idx[p], 1:] / np.where(b[k] > 0, b[k], 1.0), np.inf)
-        keep = np.isfinite(ratio).any(axis=1)
-        p, k, j = p[keep], k[keep], np.argmin(ratio[keep], axis=1)
-        before = (self._conc(idx) @ tab.a)[p, j + 1]
-        self.x[idx[p], j + 1] -= si[p, k] / b[k, j]
-        after = (self._conc(idx) @ tab.a)[p, j + 1]
-        self.n[idx[p], k] = np.maximum(before - after, 0.0) / b[k, j]
+    def _keep_independent(self, idx, act, added):
+        """Where a newly added solid's saturation is fixed by solids already present (the phase rule), drop the
+        present solid that its formation uses up first (ratio test, as in dual active-set methods)."""
+        rows = np.flatnonzero(added.any(axis=1))
+        if rows.size == 0:
+            return
+        bf = np.where(act[rows][:, :, None] & self.free[idx[rows]][:, None, :], self.tab.b[None], 0.0)
+        rank = np.linalg.matrix_rank(bf)
+        for r in rows[rank < act[rows].sum(axis=1)]:  # rare: only points whose new set is degenerate
+            p = idx[r]
+            free = self.free[p]
+            for k_new in np.flatnonzero(added[r]):
+                others = np.flatnonzero(act[r])
+                others = others[others != k_new]
+                if others.size == 0:
+                    continue
+                basis = self.tab.b[others][:, free].T
+                target = self.tab.b[k_new, free]
+                alpha, *_ = np.linalg.lstsq(basis, target, rcond=None)
+                if np.abs(basis @ alpha - target).max() > 1e-9:
+                    continue  # independent
+                pos = alpha > 1e-12
+                if not pos.any():
+                    act[r, k_new] = False  # cannot enter without breaking the phase rule
+                    continue
+                ratio = np.where(pos, np.maximum(self.n[p, others], 0.0) / np.where(pos, alpha, 1.0), np.inf)
+                act[r, others[np.argmin(ratio)]] = False
+
+    def check_range(self, idx):
+        """Refuse points whose ionic strength is beyond the activity model's range."""
+        if self.ideal:
+            return
+        over = self.ionic[idx] > MAX_IONIC_STRENGTH
+        if over.any():
+            bad = idx[over]
+            where = self.ph[bad] if self.ph is not None else bad
+            label = "pH" if self.ph is not None else "point"
+            raise ModelRangeError(
+                "ionic strength",
+                round(float(self.ionic[bad].max()), 2),
+                f"the Davies activity model is used up to {MAX_IONIC_STRENGTH} mol/L; this water exceeds it at "
+                f"{label} {', '.join(f'{v:.3g}' for v in np.asarray(where)[:8])} (too concentrated, or a pH too "
+                "extreme to hold with strong acid or base)",
+            )
 
     # ------------------------------------------------------------------ result
     def fail(self, idx, why):
@@ -394,11 +450,9 @@ class _State:
         si = self._si(idx, lg)
         n = np.where(self.active, self.n, 0.0)
         tot = c @ tab.a + n @ tab.b
-        rel = np.where(
-            self.present[:, 1:],
-            np.abs(tot[:, 1:] - self.t[:, 1:]) / np.where(self.present[:, 1:], self.t[:, 1:], 1.0),
-            0.0,
-        )
+        ref = np.where(self.present[:, 1:], self.t[:, 1:], 1.0)
+        rel = np.where(self.present[:, 1:], np.abs(tot[:, 1:] - self.t[:, 1:]) / ref, 0.0)
+        charge = c @ tab.z
         bad = (
             (rel.max(axis=1, initial=0.0) > TOL_MASS)
             | ((si > 1e-7) & ~self.active & self.possible).any(axis=1)
@@ -406,12 +460,11 @@ class _State:
             | (n < 0).any(axis=1)
             | ~np.isfinite(c).all(axis=1)
         )
+        if self.ph is None:
+            bad |= np.abs(charge) > 1e-10 * np.maximum(c @ np.abs(tab.z), 1e-300)
         if bad.any():
             self.fail(np.flatnonzero(bad), "the solution failed verification")
-        ionic = 0.5 * (c @ tab.z**2)
-        charge = c @ tab.z
-        if self.ph is not None:
-            ionic = ionic + 0.5 * np.abs(charge)
+        ionic = self._ionic_of(c)
         ph = -(self.x[:, 0] + lg[:, self.comp_species[0]])
         return Equilibrium(
             tableau=tab,
@@ -427,6 +480,14 @@ class _State:
         )
 
 
+def _component_rows(tab: Tableau) -> np.ndarray:
+    return np.array([tab.species.index(c) for c in tab.components])
+
+
+def _charges(tab: Tableau) -> np.ndarray:
+    return tab.z[_component_rows(tab)]
+
+
 def _log_sum(values: np.ndarray) -> np.ndarray:
     """log10 of the sum of 10**values over axis 1 (species), without overflow."""
     top = values.max(axis=1)
@@ -434,12 +495,12 @@ def _log_sum(values: np.ndarray) -> np.ndarray:
     return safe + np.log10(np.power(10.0, values - safe[:, None, :]).sum(axis=1))
 
 
-def _solve_batch(jac: np.ndarray, rhs: np.ndarray) -> np.ndarray:
-    """Solve J x = rhs for every point; singular points fall back to least squares."""
+def _solve_batch(mat: np.ndarray, rhs: np.ndarray) -> np.ndarray:
+    """Solve M y = rhs for every point; singular points fall back to least squares."""
     try:
-        return np.linalg.solve(jac, rhs[..., None])[..., 0]
+        return np.linalg.solve(mat, rhs[..., None])[..., 0]
     except np.linalg.LinAlgError:
         out = np.empty_like(rhs)
-        for p in range(jac.shape[0]):  # rare fallback only
-            out[p] = np.linalg.lstsq(jac[p], rhs[p], rcond=None)[0]
+        for p in range(mat.shape[0]):  # rare fallback only
+            out[p] = np.linalg.lstsq(mat[p], rhs[p], rcond=None)[0]
         return out
