@@ -49,6 +49,9 @@ TOL_MASS = 1e-10  # verified relative mass-balance error
 MAX_STEP_LOG = 2.0  # largest change of any species' log10 concentration in one Newton step
 MAX_IONIC_STRENGTH = 1.2  # mol/L; beyond it the Davies equation no longer gives usable activity coefficients
 MAX_ITER = 100  # Newton iterations per pass
+EARLY_DROP_ITER = (
+    10  # after this many iterations a pass stops early where a present solid has a negative amount
+)
 MAX_ROUNDS = 200  # passes (active-set and ionic-strength updates)
 
 
@@ -297,7 +300,7 @@ class _State:
         """Newton passes at fixed activity coefficients, with a backtracking line search on Phi."""
         m = self.m
         pending = idx.copy()
-        for _ in range(MAX_ITER):
+        for it in range(MAX_ITER):
             if pending.size == 0:
                 return
             lg = self._lg(pending)
@@ -311,13 +314,18 @@ class _State:
             # stay (huge multipliers of mixed sign); the active-set update then drops the negative ones, and the
             # final verification catches anything else
             done = ((residual < TOL_RESIDUAL) & (step_size < TOL_STEP)) | (step_size < TOL_STALL)
+            if it >= EARLY_DROP_ITER:
+                # a solid with a negative amount will leave the set anyway: stop polishing a set that cannot stay
+                done |= (self.active[pending] & (n_new < 0.0)).any(axis=1)
             lam = np.minimum(1.0, MAX_STEP_LOG / np.maximum(np.abs(dx @ self.tab.a.T).max(axis=1), 1e-300))
             x0 = self.x[pending]
             phi0 = self._phi(pending, x0, lg)
             slope = np.einsum(
                 "pj,pj->p", np.where(self.free[pending], c @ self.tab.a - self.t[pending], 0.0), dx
             )
-            trial = ~done
+            # near the solution the change in Phi is below rounding: take the Newton step as it is
+            trial = ~done & (np.abs(slope) > 1e-10 * np.maximum(np.abs(phi0), 1e-300))
+            self.x[pending[~done & ~trial]] = (x0 + lam[:, None] * dx)[~done & ~trial]
             for _ls in range(40):
                 if not trial.any():
                     break
@@ -334,22 +342,26 @@ class _State:
                 trial[rows[ok]] = False
                 lam[rows[~ok]] *= 0.5
             pending = pending[~done]
-        self.fail(pending, "Newton iterations did not converge")
+        if pending.size:
+            self.fail(pending, "Newton iterations did not converge")
 
     def update_ionic_strength(self, idx) -> np.ndarray:
         """One step of a bracketed root search on F(u) = log10 I(computed) - u, u = log10 I (the ionic strength
         used for the activity coefficients). F is continuous (the equilibrium is, across solids appearing), so
-        once a sign change is bracketed, false position with bisection safeguards converges. Returns the points
-        whose ionic strength moved."""
+        once a sign change is bracketed, false position with the Illinois modification converges
+        superlinearly. Before that, the plain step u + F. Returns the points whose ionic strength moved."""
         if self.ideal:
             return np.zeros(idx.size, bool)
         c = self._conc(idx)
         u = np.log10(self.ionic[idx])
         r = np.log10(np.maximum(self._ionic_of(c), 1e-300)) - u
         moved = np.abs(r) > TOL_IONIC
-        br = self.bracket[:, idx]  # rows: u_low, f_low (>0), u_high, f_high (<0), last side updated
+        br = self.bracket[:, idx]  # rows: u_low, f_low (>0), u_high, f_high (<0), side of the last update
         pos = r > 0
         same_side = br[4] == np.where(pos, 1.0, -1.0)
+        # Illinois rule: when the same end is replaced twice running, halve the other end's residual
+        br[3] = np.where(pos & same_side, 0.5 * br[3], br[3])
+        br[1] = np.where(~pos & same_side, 0.5 * br[1], br[1])
         br[0] = np.where(pos, u, br[0])
         br[1] = np.where(pos, r, br[1])
         br[2] = np.where(pos, br[2], u)
@@ -358,8 +370,7 @@ class _State:
         both = np.isfinite(br[1]) & np.isfinite(br[3])
         with np.errstate(divide="ignore", invalid="ignore"):
             false_pos = br[0] - br[1] * (br[2] - br[0]) / (br[3] - br[1])
-        middle = 0.5 * (br[0] + br[2])
-        bracketed = np.where(same_side | ~np.isfinite(false_pos), middle, false_pos)
+        bracketed = np.where(np.isfinite(false_pos), false_pos, 0.5 * (br[0] + br[2]))
         new = np.where(both, bracketed, u + np.clip(r, -1.0, 1.0))
         self.bracket[:, idx] = br
         self.ionic[idx] = np.where(moved, 10.0**new, self.ionic[idx])
