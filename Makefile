@@ -28,7 +28,7 @@ install: $(STAMP)
 $(STAMP): pyproject.toml
 	test -x $(PY) || $(RUN) $(PYTHON3) -m venv $(VENV)
 	test -x $(UV) || $(RUN) $(PY) -m pip install --quiet uv
-	$(RUN) $(UV) pip install --python $(PY) -e '.[test]'
+	$(RUN) $(UV) pip install --python $(PY) --config-settings editable_mode=compat -e '.[test]'
 	touch $@
 
 test: install
