@@ -7,7 +7,7 @@ solver only does arithmetic. Species and solids are kept only when every compone
 from __future__ import annotations
 
 import functools
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -64,6 +64,13 @@ class Tableau:
     def component(self, name: str) -> int:
         """Position of a component in this tableau."""
         return self.components.index(name)
+
+    def with_solubility_shift(self, component: str, delta_log_k: float) -> Tableau:
+        """A copy in which every solid containing ``component`` is ``delta_log_k`` more soluble (its solubility
+        product multiplied by 10**delta_log_k): the apparent solubility shift fitted to jar tests. [log10 units]"""
+        j = self.component(component)
+        log_ks = self.log_ks - np.where(self.b[:, j] > 0, float(delta_log_k), 0.0)
+        return replace(self, log_ks=log_ks)
 
     def with_log_beta(self, log_beta: np.ndarray) -> Tableau:
         """A copy with constants taken from a full vector of formation constants (e.g. a Monte Carlo sample)."""

@@ -67,7 +67,7 @@ def fig_residual_curve(
         fig.update_layout(
             title=title,
             xaxis=dict(title="pH", range=[float(curve.index.min()), float(curve.index.max())], dtick=1),
-            yaxis=dict(title="dissolved metal (mg/L)", type="log", exponentformat="power"),
+            yaxis=dict(title="dissolved metal (mg/L)", type="log", exponentformat="power", dtick=1),
             legend=dict(title="metal"),
             template="simple_white",
             hovermode="closest",

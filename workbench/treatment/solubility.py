@@ -7,6 +7,8 @@ column names. The pH is held by a strong acid or base (fixed-pH mode); "residual
 
 from __future__ import annotations
 
+import numbers
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -54,7 +56,7 @@ class SpeciationResult:
     warnings: list[str] = field(default_factory=list)
 
 
-def equilibrium(water: Water, ph, *, solids: str = "fresh", activity: str = "davies"):
+def equilibrium(water: Water, ph, *, solids: str = "fresh", activity: str = "davies", solubility_shift=None):
     """Solve the water at the given pH values; returns (tableau, Equilibrium). Internal building block."""
     if not isinstance(water, Water):
         raise InputError("water", type(water).__name__, "a workbench Water is required")
@@ -65,10 +67,41 @@ def equilibrium(water: Water, ph, *, solids: str = "fresh", activity: str = "dav
     ph = as_array(ph)
     totals = water.totals()
     tab = tableau.build(tuple(totals), water.temperature_c, solids)
+    for key, delta in check_shift(water, solubility_shift).items():
+        tab = tab.with_solubility_shift(METALS[key], delta)
     t = np.zeros(len(tab.components))
     for comp, v in totals.items():
         t[tab.component(comp)] = v
     return tab, solver.solve(tab, t, ph, activity=activity)
+
+
+MAX_SHIFT_LOG = 5.0
+
+
+def check_shift(water: Water, solubility_shift) -> dict[str, float]:
+    """Validate an apparent solubility shift: {metal key of the water: delta log10 Ksp}, |delta| <= 5."""
+    if solubility_shift is None:
+        return {}
+    if not isinstance(solubility_shift, Mapping):
+        raise InputError(
+            "solubility_shift", solubility_shift, "a mapping of metal key to log10 units is required"
+        )
+    out = {}
+    for key, value in solubility_shift.items():
+        if key not in water.metals_mg_l:
+            raise InputError(
+                "solubility_shift", key, f"metals in this water are {', '.join(water.metals_mg_l)}"
+            )
+        if isinstance(value, bool) or not isinstance(value, numbers.Real) or not np.isfinite(value):
+            raise InputError(
+                f"solubility_shift[{key!r}]", value, "a finite number of log10 units is required"
+            )
+        if abs(value) > MAX_SHIFT_LOG:
+            raise InputError(
+                f"solubility_shift[{key!r}]", value, f"allowed -{MAX_SHIFT_LOG:g} to {MAX_SHIFT_LOG:g}"
+            )
+        out[key] = float(value)
+    return out
 
 
 def metal_mg_l(water: Water, tab, eq) -> dict[str, np.ndarray]:
@@ -81,7 +114,9 @@ def metal_mg_l(water: Water, tab, eq) -> dict[str, np.ndarray]:
     }
 
 
-def residual_curve(water: Water, ph, *, solids: str = "fresh", activity: str = "davies") -> pd.DataFrame:
+def residual_curve(
+    water: Water, ph, *, solids: str = "fresh", activity: str = "davies", solubility_shift=None
+) -> pd.DataFrame:
     """Dissolved metal against pH.
 
     Parameters
@@ -92,6 +127,9 @@ def residual_curve(water: Water, ph, *, solids: str = "fresh", activity: str = "
     solids : {"fresh", "aged", "none"}
         Which solids may form (fresh precipitates by default; "aged" is a thermodynamic lower bound).
     activity : {"davies", "ideal"}
+    solubility_shift : mapping, optional
+        Apparent solubility shift per metal key: every solid of that metal is made 10**delta more soluble
+        (e.g. from a jar-test calibration). [log10 units]
 
     Returns
     -------
@@ -100,7 +138,7 @@ def residual_curve(water: Water, ph, *, solids: str = "fresh", activity: str = "
         ``attrs["warnings"]`` lists where the model is stretched.
     """
     phs = as_array(ph)
-    tab, eq = equilibrium(water, phs, solids=solids, activity=activity)
+    tab, eq = equilibrium(water, phs, solids=solids, activity=activity, solubility_shift=solubility_shift)
     df = pd.DataFrame(metal_mg_l(water, tab, eq), index=pd.Index(phs, name="pH"))
     df.attrs["units"] = "mg/L dissolved"
     df.attrs["warnings"] = model_warnings(water, tab, eq)
@@ -108,7 +146,12 @@ def residual_curve(water: Water, ph, *, solids: str = "fresh", activity: str = "
 
 
 def speciate(
-    water: Water, ph: float | None = None, *, solids: str = "fresh", activity: str = "davies"
+    water: Water,
+    ph: float | None = None,
+    *,
+    solids: str = "fresh",
+    activity: str = "davies",
+    solubility_shift=None,
 ) -> SpeciationResult:
     """One equilibrium: species, solids formed, saturation indices, ionic strength.
 
@@ -127,7 +170,7 @@ def speciate(
     phs = as_array(ph)
     if phs.size != 1:
         raise InputError("ph", ph, "speciate takes one pH; use residual_curve for many")
-    tab, eq = equilibrium(water, phs, solids=solids, activity=activity)
+    tab, eq = equilibrium(water, phs, solids=solids, activity=activity, solubility_shift=solubility_shift)
     data = database.load()
     sp_idx = tab.species_index
     conc = eq.conc[0]
@@ -177,6 +220,7 @@ def minimum_solubility(
     ph_range: tuple[float, float] = DEFAULT_PH_RANGE,
     solids: str = "fresh",
     activity: str = "davies",
+    solubility_shift=None,
 ) -> pd.DataFrame:
     """Each metal's minimum dissolved residual over pH in this water.
 
@@ -193,7 +237,8 @@ def minimum_solubility(
     """
     lo, hi = _check_range(ph_range)
     grid = np.round(np.arange(lo, hi + 1e-9, 0.05), 6)
-    tab, eq = equilibrium(water, grid, solids=solids, activity=activity)
+    opts = dict(solids=solids, activity=activity, solubility_shift=solubility_shift)
+    tab, eq = equilibrium(water, grid, **opts)
     coarse = metal_mg_l(water, tab, eq)
     metals = list(water.metals_mg_l)
     # refine around each metal's lowest grid point, all metals in one solve
@@ -205,7 +250,7 @@ def minimum_solubility(
         owner.append(np.full(pts.size, k))
     fine_ph = np.concatenate(fine_ph)
     owner = np.concatenate(owner)
-    tab_f, eq_f = equilibrium(water, fine_ph, solids=solids, activity=activity)
+    tab_f, eq_f = equilibrium(water, fine_ph, **opts)
     fine = metal_mg_l(water, tab_f, eq_f)
     data = database.load()
     rows = []
