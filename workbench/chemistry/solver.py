@@ -47,11 +47,13 @@ TOL_IONIC = 1e-10  # |log10(I computed / I used)| at which the ionic strength ha
 TOL_SATURATION = 1e-9  # SI above which an absent solid is taken as supersaturated
 TOL_MASS = 1e-10  # verified relative mass-balance error
 MAX_STEP_LOG = 2.0  # largest change of any species' log10 concentration in one Newton step
-MAX_IONIC_STRENGTH = 1.2  # mol/L; beyond it the Davies equation no longer gives usable activity coefficients
-MAX_ITER = 100  # Newton iterations per pass
-EARLY_DROP_ITER = (
-    10  # after this many iterations a pass stops early where a present solid has a negative amount
+MAX_IONIC_STRENGTH = (
+    1.5  # mol/L; beyond it the Davies equation no longer gives usable activity coefficients (it turns
 )
+# upward near 1.7 mol/L); between 0.5 and this limit results carry a warning
+INIT_ITER = 30  # per-component steps of the initial guess
+MAX_ITER = 100  # Newton iterations per pass
+EARLY_DROP_ITER = 4  # after this many iterations a pass stops where a present solid has a negative amount
 MAX_ROUNDS = 200  # passes (active-set and ionic-strength updates)
 
 
@@ -138,9 +140,31 @@ def solve(
     n_pts = max(totals.shape[0], np.size(ph)) if fixed else totals.shape[0]
     ph_arr = np.broadcast_to(np.asarray(ph, dtype=float), (n_pts,)).copy() if fixed else None
     totals = np.broadcast_to(totals, (n_pts, len(tab.components))).copy()
-    state = _State(tab, totals, ph_arr, activity)
-    state.initial_guess(np.broadcast_to(np.asarray(ph_guess, float), (n_pts,)))
-    todo = np.arange(n_pts)
+    with _single_threaded_blas():
+        state = _State(tab, totals, ph_arr, activity)
+        guess = np.broadcast_to(np.asarray(ph_guess, float), (n_pts,))
+        if n_pts <= CONTINUATION_MIN_POINTS:
+            state.initial_guess(np.arange(n_pts), guess)
+        else:
+            # continuation: solve every k-th point first, then start every point from its nearest solved one
+            # (its solids, ionic strength and free concentrations), which leaves a few Newton steps each
+            stride = int(np.ceil(n_pts / CONTINUATION_MIN_POINTS))
+            coarse = np.arange(0, n_pts, stride)
+            state.initial_guess(coarse, guess)
+            _iterate(state, coarse)
+            nearest = coarse[np.clip(np.rint(np.arange(n_pts) / stride).astype(int), 0, coarse.size - 1)]
+            fresh = state.copy_from(nearest)
+            if fresh.size:
+                state.initial_guess(fresh, guess)
+        _iterate(state, np.arange(n_pts))
+        return state.finish()
+
+
+CONTINUATION_MIN_POINTS = 24
+
+
+def _iterate(state: _State, todo: np.ndarray) -> None:
+    """Alternate Newton passes, active-set updates and ionic-strength steps until every point has settled."""
     for _ in range(MAX_ROUNDS):
         state.restore(todo)
         state.newton(todo)
@@ -150,10 +174,22 @@ def solve(
         state.check_range(todo)
         todo = todo[moved | changed]
         if todo.size == 0:
-            break
-    else:
-        state.fail(todo, "the solids present and the ionic strength did not settle")
-    return state.finish()
+            return
+    state.fail(todo, "the solids present and the ionic strength did not settle")
+
+
+_BLAS = None
+
+
+def _single_threaded_blas():
+    """Run BLAS on one thread: the solver's many small matrix products are slower with threads (and with
+    other processes on the cores)."""
+    global _BLAS
+    if _BLAS is None:
+        from threadpoolctl import ThreadpoolController
+
+        _BLAS = ThreadpoolController()
+    return _BLAS.limit(limits=1, user_api="blas")
 
 
 class _State:
@@ -184,6 +220,10 @@ class _State:
         # a solid can only form at a point where all its components are present
         self.possible = ~((np.abs(tab.b[None, :, 1:]) > 0) & ~self.present[:, None, 1:]).any(axis=2)
         self.weight = np.maximum(1.0, np.abs(tab.b[:, 1:]).sum(axis=1))
+        self.outer = LN10 * (tab.a[:, :, None] * tab.a[:, None, :]).reshape(len(tab.species), m * m)
+        a_pos = np.clip(tab.a[:, 1:], 0.0, None)
+        with np.errstate(divide="ignore"):
+            self.log_a = np.where(a_pos > 0, np.log10(np.where(a_pos > 0, a_pos, 1.0)), -np.inf)
 
     # ------------------------------------------------------------------ pieces of the model
     def _lg(self, idx):
@@ -225,30 +265,48 @@ class _State:
             self.x[idx, 0] = -self.ph[idx] - lg[:, self.comp_species[0]]
 
     # ------------------------------------------------------------------ start
-    def initial_guess(self, ph_guess):
-        """Start near the mass balances: per-component Newton steps in the log domain (no overflow)."""
+    def copy_from(self, source: np.ndarray) -> np.ndarray:
+        """Start each point from the state of point ``source[p]`` where the components present agree; returns
+        the points that could not be started so (they need their own initial guess)."""
+        same = (self.present == self.present[source]).all(axis=1) & (
+            self.possible == self.possible[source]
+        ).all(axis=1)
+        dst = np.flatnonzero(same & (source != np.arange(source.size)))
+        src = source[dst]
+        unmatched = np.flatnonzero(~same)
+        self.x[dst, 1:] = self.x[src, 1:]
+        if self.ph is None:
+            self.x[dst, 0] = self.x[src, 0]
+        self.n[dst] = self.n[src]
+        self.active[dst] = self.active[src]
+        self.ionic[dst] = self.ionic[src]
+        return unmatched
+
+    def initial_guess(self, idx, ph_guess):
+        """Start near the mass balances: per-component Newton steps in the log domain (no overflow), ideal
+        activities, no solids; then a free-ion estimate of the ionic strength."""
         tab = self.tab
-        pos = self.present[:, 1:]
-        self.x[:, 1:] = np.where(pos, np.log10(np.where(pos, self.t[:, 1:], 1.0)), ABSENT)
-        self.x[:, 0] = -(self.ph if self.ph is not None else ph_guess)
-        a = np.clip(tab.a[:, 1:], 0.0, None)
-        with np.errstate(divide="ignore"):
-            log_a = np.where(a > 0, np.log10(np.where(a > 0, a, 1.0)), -np.inf)  # (n, m-1)
-        log_t = np.log10(np.where(pos, self.t[:, 1:], 1.0))
-        for _ in range(60):
-            logc = tab.log_k + self.x @ tab.a.T  # ideal, without activity coefficients
-            s1 = _log_sum(logc[:, :, None] + log_a[None])  # log10 sum_i a_ij c_i
-            s2 = _log_sum(logc[:, :, None] + 2.0 * log_a[None])  # log10 sum_i a_ij^2 c_i
-            order = np.power(10.0, s2 - s1)  # d log S_j / d x_j
-            step = np.where(pos, (log_t - s1) / order, 0.0)
-            self.x[:, 1:] += np.clip(step, -50.0, 50.0)
-            if np.abs(step).max(initial=0.0) < 1e-3:
+        pos = self.present[idx, 1:]
+        x = np.where(pos, np.log10(np.where(pos, self.t[idx, 1:], 1.0)), ABSENT)
+        h = -(self.ph[idx] if self.ph is not None else ph_guess[idx])
+        log_t = x.copy()
+        for _ in range(INIT_ITER):
+            logc = tab.log_k + h[:, None] * tab.a[:, 0] + x @ tab.a[:, 1:].T
+            s1 = _log_sum(logc[:, :, None] + self.log_a[None])  # log10 sum_i a_ij c_i
+            s2 = _log_sum(logc[:, :, None] + 2.0 * self.log_a[None])  # log10 sum_i a_ij^2 c_i
+            step = np.where(
+                pos, (log_t - s1) / np.power(10.0, s2 - s1), 0.0
+            )  # d log S_j / d x_j = 10**(s2-s1)
+            x += np.clip(step, -50.0, 50.0)
+            if np.abs(step).max(initial=0.0) < 0.05:
                 break
-        if not self.ideal:  # free-ion estimate from the totals, H+ and OH-; refined by the outer iteration
+        self.x[idx, 1:] = x
+        self.x[idx, 0] = h
+        if not self.ideal:
             z2 = _charges(tab)[1:] ** 2
-            h = 10.0 ** self.x[:, 0]
-            self.ionic = np.clip(0.5 * (self.t[:, 1:] @ z2 + h + 1e-14 / h), 1e-7, 3.0)
-        self._hold_ph(np.arange(self.t.shape[0]))
+            conc_h = 10.0**h
+            self.ionic[idx] = np.clip(0.5 * (self.t[idx, 1:] @ z2 + conc_h + 1e-14 / conc_h), 1e-7, 3.0)
+        self._hold_ph(idx)
 
     def restore(self, idx):
         """Least-norm change of X that makes every present solid exactly saturated (constraints are linear)."""
@@ -278,8 +336,9 @@ class _State:
         scale = 1.0 / np.maximum(np.maximum(np.abs(self.t[idx]), c @ np.abs(tab.a)), 1e-300)
         kkt = np.zeros((k, m + s, m + s))
         rhs = np.zeros((k, m + s))
-        ca = c[:, :, None] * tab.a[None, :, :]
-        hess = LN10 * np.einsum("ij,pik->pjk", tab.a, ca)
+        hess = (c @ self.outer).reshape(
+            k, m, m
+        )  # ln10 sum_i a_ij a_ik c_i, one matrix product for all points
         kkt[:, :m, :m] = hess * scale[:, :, None]
         kkt[:, :m, m:] = np.where(act[:, None, :], tab.b.T[None], 0.0) * scale[:, :, None]
         rhs[:, :m] = (self.t[idx] - dissolved) * scale
@@ -371,10 +430,45 @@ class _State:
         with np.errstate(divide="ignore", invalid="ignore"):
             false_pos = br[0] - br[1] * (br[2] - br[0]) / (br[3] - br[1])
         bracketed = np.where(np.isfinite(false_pos), false_pos, 0.5 * (br[0] + br[2]))
-        new = np.where(both, bracketed, u + np.clip(r, -1.0, 1.0))
+        # Newton step on u from the implicit derivative of the solution; kept only inside the bracket
+        slope = self._ionic_slope(idx, c)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            newton = u - r / slope
+        lo, hi = np.fmin(br[0], br[2]), np.fmax(br[0], br[2])
+        inside = np.isfinite(newton) & (~both | ((newton > lo) & (newton < hi))) & (np.abs(newton - u) <= 1.0)
+        new = np.where(inside, newton, np.where(both, bracketed, u + np.clip(r, -1.0, 1.0)))
         self.bracket[:, idx] = br
         self.ionic[idx] = np.where(moved, 10.0**new, self.ionic[idx])
         return moved
+
+    def _ionic_slope(self, idx, c):
+        """dF/du for F(u) = log10 I(computed) - u, u = log10 I(used), at the current (converged) solution with
+        its solids held: implicit differentiation of the KKT system (one extra right-hand side)."""
+        tab, m = self.tab, self.m
+        ionic = self.ionic[idx]
+        root = np.sqrt(ionic)
+        d_davies = 1.0 / (2.0 * root * (1.0 + root) ** 2) - 0.3  # dD/dI of the Davies function
+        dlg = -tab.davies_a * tab.z[None, :] ** 2 * (d_davies * ionic * LN10)[:, None]  # d log10 gamma_i / du
+        comp_dlg = dlg[:, self.comp_species]
+        g = comp_dlg @ tab.a.T - dlg  # d log10 c_i / du at fixed X
+        lg = self._lg(idx)
+        kkt, _, _, scale = self._system(idx, lg)
+        d_rhs = np.zeros((idx.size, kkt.shape[1]))
+        d_rhs[:, :m] = -(LN10 * (c * g) @ tab.a) * scale
+        d_rhs[:, :m][~self.free[idx]] = 0.0
+        dxh = np.zeros(idx.size)
+        if self.ph is not None:  # X_H follows the activity coefficient of H+ to hold the pH
+            dxh = -comp_dlg[:, 0]
+            d_rhs[:, 0] = dxh
+        act = self.active[idx]
+        d_rhs[:, m:] = np.where(act, -(comp_dlg @ tab.b.T + tab.b[:, 0][None, :] * dxh[:, None]), 0.0)
+        dx = _solve_batch(kkt, d_rhs)[:, :m]
+        dlogc = g + dx @ tab.a.T  # total d log10 c_i / du
+        dc = LN10 * c * dlogc
+        d_ionic = dc @ (0.5 * tab.z**2)
+        if self.ph is not None:
+            d_ionic = d_ionic + 0.5 * np.sign(c @ tab.z) * (dc @ tab.z)
+        return d_ionic / (np.maximum(self._ionic_of(c), 1e-300) * LN10) - 1.0
 
     def update_active_set(self, idx) -> np.ndarray:
         """Drop solids with negative amounts; add supersaturated ones. Returns which points changed."""
