@@ -46,6 +46,7 @@ TOL_STALL = 1e-13  # change of X below which a Newton pass is at rounding level 
 TOL_IONIC = 1e-10  # |log10(I computed / I used)| at which the ionic strength has converged
 TOL_SATURATION = 1e-9  # SI above which an absent solid is taken as supersaturated
 TOL_MASS = 1e-10  # verified relative mass-balance error
+FAR_START_LOG = 3.0  # a species this far (log10) above the largest total marks a start to abandon
 MAX_STEP_LOG = 2.0  # largest change of any species' log10 concentration in one Newton step
 MAX_IONIC_STRENGTH = (
     1.5  # mol/L; beyond it the Davies equation no longer gives usable activity coefficients (it turns
@@ -108,6 +109,9 @@ def solve(
     *,
     activity: str = "davies",
     ph_guess: np.ndarray | float = 7.0,
+    log_k: np.ndarray | None = None,
+    log_ks: np.ndarray | None = None,
+    start: Equilibrium | None = None,
 ) -> Equilibrium:
     """Solve the equilibrium at N points.
 
@@ -123,6 +127,11 @@ def solve(
         Activity model.
     ph_guess : float or ndarray
         Starting pH in charge-balance mode.
+    log_k, log_ks : ndarray (N, n) and (N, s), optional
+        Per-point formation constants of the species and solids, replacing the tableau's (Monte Carlo samples).
+    start : Equilibrium, optional
+        A solution of the same system at the same N points (e.g. the nominal constants) to start from: its free
+        concentrations, solids and ionic strength. Makes perturbed solves take a few Newton steps.
 
     Returns
     -------
@@ -141,18 +150,18 @@ def solve(
     ph_arr = np.broadcast_to(np.asarray(ph, dtype=float), (n_pts,)).copy() if fixed else None
     totals = np.broadcast_to(totals, (n_pts, len(tab.components))).copy()
     with _single_threaded_blas():
-        state = _State(tab, totals, ph_arr, activity)
+        state = _State(tab, totals, ph_arr, activity, log_k, log_ks)
         guess = np.broadcast_to(np.asarray(ph_guess, float), (n_pts,))
-        if n_pts <= CONTINUATION_MIN_POINTS:
+        if start is not None:
+            state.start_from(start)
+        elif n_pts <= CONTINUATION_MIN_POINTS:
             state.initial_guess(np.arange(n_pts), guess)
         else:
-            # continuation: solve every k-th point first, then start every point from its nearest solved one
-            # (its solids, ionic strength and free concentrations), which leaves a few Newton steps each
-            stride = int(np.ceil(n_pts / CONTINUATION_MIN_POINTS))
-            coarse = np.arange(0, n_pts, stride)
+            # continuation: solve a few points first, then start every point from its nearest solved neighbour
+            # with the same totals (its solids, ionic strength and free concentrations): a few Newton steps each
+            coarse, nearest = _continuation_plan(totals, None if log_k is None else np.asarray(log_k))
             state.initial_guess(coarse, guess)
             _iterate(state, coarse)
-            nearest = coarse[np.clip(np.rint(np.arange(n_pts) / stride).astype(int), 0, coarse.size - 1)]
             fresh = state.copy_from(nearest)
             if fresh.size:
                 state.initial_guess(fresh, guess)
@@ -163,11 +172,43 @@ def solve(
 CONTINUATION_MIN_POINTS = 24
 
 
+def _continuation_plan(totals: np.ndarray, log_k: np.ndarray | None) -> tuple[np.ndarray, np.ndarray]:
+    """Coarse points to solve first and, for every point, the coarse point to start from. Points are grouped
+    by identical totals (and constants); within a group (in the order given, e.g. along pH) every k-th point is
+    coarse, and each point starts from the nearest coarse point of its own group."""
+    n_pts = totals.shape[0]
+    key = totals if log_k is None or log_k.ndim < 2 else np.hstack([totals, log_k])
+    _, group = np.unique(key, axis=0, return_inverse=True)
+    group = group.ravel()
+    order = np.argsort(group, kind="stable")
+    sizes = np.bincount(group)
+    starts = np.concatenate([[0], np.cumsum(sizes)[:-1]])
+    rank = np.empty(n_pts, int)
+    rank[order] = np.arange(n_pts) - np.repeat(starts, sizes)
+    per_group = max(2, int(np.ceil(CONTINUATION_MIN_POINTS / sizes.size)))
+    stride = np.maximum(1, np.ceil(sizes / per_group).astype(int))[group]
+    size = sizes[group]
+    last_coarse = ((size - 1) // stride) * stride
+    near_rank = np.minimum(np.rint(rank / stride).astype(int) * stride, last_coarse)
+    nearest = order[starts[group] + near_rank]
+    coarse = np.flatnonzero(rank % stride == 0)
+    return coarse, nearest
+
+
 def _iterate(state: _State, todo: np.ndarray) -> None:
     """Alternate Newton passes, active-set updates and ionic-strength steps until every point has settled."""
+    restarted = np.zeros(state.x.shape[0], bool)
     for _ in range(MAX_ROUNDS):
         state.restore(todo)
-        state.newton(todo)
+        stuck = state.newton(todo)
+        if stuck.size:
+            # a pass that does not converge from where it started (e.g. a far neighbour's state) starts again
+            # once from the cold initial guess, without solids; a second failure is an error
+            if restarted[stuck].any():
+                state.fail(stuck[restarted[stuck]], "Newton iterations did not converge")
+            restarted[stuck] = True
+            state.restart(stuck)
+            continue
         changed = state.update_active_set(todo)
         moved = np.zeros_like(changed)
         moved[~changed] = state.update_ionic_strength(todo[~changed])
@@ -195,8 +236,17 @@ def _single_threaded_blas():
 class _State:
     """Working arrays of one solve (internal)."""
 
-    def __init__(self, tab: Tableau, totals: np.ndarray, ph: np.ndarray | None, activity: str):
+    def __init__(
+        self, tab: Tableau, totals: np.ndarray, ph: np.ndarray | None, activity: str, log_k=None, log_ks=None
+    ):
         self.tab = tab
+        n_all = totals.shape[0]
+        self.log_k = np.broadcast_to(
+            tab.log_k if log_k is None else np.asarray(log_k, float), (n_all, len(tab.species))
+        )
+        self.log_ks = np.broadcast_to(
+            tab.log_ks if log_ks is None else np.asarray(log_ks, float), (n_all, len(tab.solids))
+        )
         self.ph = ph
         self.ideal = activity == "ideal"
         n_pts, m = totals.shape
@@ -234,7 +284,7 @@ class _State:
 
     def _logc(self, idx, x, lg):
         tab = self.tab
-        return tab.log_k + (x + lg[:, self.comp_species]) @ tab.a.T - lg
+        return self.log_k[idx] + (x + lg[:, self.comp_species]) @ tab.a.T - lg
 
     def _conc(self, idx, lg=None, x=None):
         lg = self._lg(idx) if lg is None else lg
@@ -244,7 +294,7 @@ class _State:
     def _si(self, idx, lg=None, x=None):
         lg = self._lg(idx) if lg is None else lg
         x = self.x[idx] if x is None else x
-        return self.tab.log_ks + (x + lg[:, self.comp_species]) @ self.tab.b.T
+        return self.log_ks[idx] + (x + lg[:, self.comp_species]) @ self.tab.b.T
 
     def _ionic_of(self, c):
         tab = self.tab
@@ -265,6 +315,24 @@ class _State:
             self.x[idx, 0] = -self.ph[idx] - lg[:, self.comp_species[0]]
 
     # ------------------------------------------------------------------ start
+    def restart(self, idx) -> None:
+        """Cold start for the given points: initial guess, no solids, fresh ionic-strength search."""
+        self.active[idx] = False
+        self.n[idx] = 0.0
+        self.bracket[:, idx] = np.nan
+        self.initial_guess(idx, -self.x[:, 0].copy() if self.ph is None else None)
+
+    def start_from(self, eq: Equilibrium) -> None:
+        """Start every point from a previous solution of the same system at the same points."""
+        if eq.log_free.shape != self.x.shape or eq.solid_amount.shape != self.n.shape:
+            raise ValueError("start: a solution of the same system at the same number of points is required")
+        self.x[:] = eq.log_free
+        self.n[:] = eq.solid_amount
+        self.active[:] = eq.solid_amount > 0
+        if not self.ideal:
+            self.ionic[:] = np.maximum(eq.ionic_strength, 1e-9)
+        self._hold_ph(np.arange(self.x.shape[0]))
+
     def copy_from(self, source: np.ndarray) -> np.ndarray:
         """Start each point from the state of point ``source[p]`` where the components present agree; returns
         the points that could not be started so (they need their own initial guess)."""
@@ -291,7 +359,7 @@ class _State:
         h = -(self.ph[idx] if self.ph is not None else ph_guess[idx])
         log_t = x.copy()
         for _ in range(INIT_ITER):
-            logc = tab.log_k + h[:, None] * tab.a[:, 0] + x @ tab.a[:, 1:].T
+            logc = self.log_k[idx] + h[:, None] * tab.a[:, 0] + x @ tab.a[:, 1:].T
             s1 = _log_sum(logc[:, :, None] + self.log_a[None])  # log10 sum_i a_ij c_i
             s2 = _log_sum(logc[:, :, None] + 2.0 * self.log_a[None])  # log10 sum_i a_ij^2 c_i
             step = np.where(
@@ -313,6 +381,7 @@ class _State:
         self._hold_ph(idx)
         act = self.active[idx]
         if not act.any():
+            self._abandon_far_starts(idx)
             return
         rows = np.flatnonzero(act.any(axis=1))
         sub = idx[rows]
@@ -323,6 +392,18 @@ class _State:
         gram[:, np.arange(self.s), np.arange(self.s)] += np.where(act, 0.0, 1.0)
         y = _solve_batch(gram, si)
         self.x[sub] -= np.einsum("psm,ps->pm", bf, y)
+        self._abandon_far_starts(idx)
+
+    def _abandon_far_starts(self, idx):
+        """A start far from a point's equilibrium (e.g. a neighbour's solids at another pH) can put a species many
+        orders of magnitude above any total; Newton would crawl down from there. Such points start cold."""
+        logc = self._logc(idx, self.x[idx], self._lg(idx))
+        # only species holding a component with a total (H+ and OH- follow the pH, not a total)
+        holds = (self.present[idx, 1:].astype(float) @ (np.abs(self.tab.a[:, 1:]) > 0).T) > 0
+        top = np.where(holds, logc, -np.inf).max(axis=1)
+        far = top > np.log10(np.abs(self.t[idx, 1:]).max(axis=1) + 1e-300) + FAR_START_LOG
+        if far.any():
+            self.restart(idx[far])
 
     # ------------------------------------------------------------------ Newton passes
     def _system(self, idx, lg):
@@ -355,13 +436,15 @@ class _State:
         kkt[:, :m, m:] *= free[:, :, None]
         return kkt, rhs, c, scale
 
-    def newton(self, idx):
-        """Newton passes at fixed activity coefficients, with a backtracking line search on Phi."""
+    def newton(self, idx) -> np.ndarray:
+        """Newton passes at fixed activity coefficients, with a backtracking line search on Phi. Returns the
+        points that did not converge within MAX_ITER iterations."""
         m = self.m
         pending = idx.copy()
+        stuck = []
         for it in range(MAX_ITER):
             if pending.size == 0:
-                return
+                break
             lg = self._lg(pending)
             kkt, rhs, c, scale = self._system(pending, lg)
             sol = _solve_batch(kkt, rhs)
@@ -376,7 +459,7 @@ class _State:
             if it >= EARLY_DROP_ITER:
                 # a solid with a negative amount will leave the set anyway: stop polishing a set that cannot stay
                 done |= (self.active[pending] & (n_new < 0.0)).any(axis=1)
-            lam = np.minimum(1.0, MAX_STEP_LOG / np.maximum(np.abs(dx @ self.tab.a.T).max(axis=1), 1e-300))
+            lam = self._step_limit(pending, dx, c)
             x0 = self.x[pending]
             phi0 = self._phi(pending, x0, lg)
             slope = np.einsum(
@@ -400,9 +483,25 @@ class _State:
                 self.x[pending[rows[ok]]] = xt[ok]
                 trial[rows[ok]] = False
                 lam[rows[~ok]] *= 0.5
-            pending = pending[~done]
-        if pending.size:
-            self.fail(pending, "Newton iterations did not converge")
+            # a point whose line search found no descent cannot progress from here: hand it back at once
+            failed = pending[trial]
+            stuck.append(failed)
+            pending = pending[~done & ~trial]
+        stuck.append(pending)
+        return np.concatenate(stuck)
+
+    def _step_limit(self, idx, dx, c):
+        """Largest step fraction (<= 1) such that no species rises above 100x the largest total, none that is
+        already that high rises by more than MAX_STEP_LOG, and no free concentration moves by more than 10 log
+        units. Falling concentrations are left to the line search."""
+        rise = dx @ self.tab.a.T  # change of log10 c_i for the full step
+        logc = np.log10(np.maximum(c, 1e-300))
+        ceiling = np.log10(np.abs(self.t[idx]).max(axis=1) + 1e-300)[:, None] + 2.0
+        room = np.where(logc < ceiling, ceiling - logc, MAX_STEP_LOG)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            lam = np.where(rise > 0, room / rise, np.inf).min(axis=1)
+        lam = np.minimum(lam, 10.0 / np.maximum(np.abs(dx).max(axis=1), 1e-300))
+        return np.minimum(1.0, lam)
 
     def update_ionic_strength(self, idx) -> np.ndarray:
         """One step of a bracketed root search on F(u) = log10 I(computed) - u, u = log10 I (the ionic strength
