@@ -12,7 +12,10 @@ Results are theoretical equilibrium: confirm by jar tests; the local permit and 
 """
 
 from workbench.errors import ConvergenceError, DataError, InputError, ModelRangeError
+from workbench.treatment.limits import available_limit_sets, combine_limits, load_limits, permit_limits
+from workbench.treatment.setpoint import SetpointDesign, design_setpoint
 from workbench.treatment.solubility import SpeciationResult, minimum_solubility, residual_curve, speciate
+from workbench.treatment.uncertainty import UncertaintyBand, uncertainty_band
 from workbench.treatment.water import Water
 
 __all__ = [
@@ -20,9 +23,17 @@ __all__ = [
     "DataError",
     "InputError",
     "ModelRangeError",
+    "SetpointDesign",
     "SpeciationResult",
+    "UncertaintyBand",
     "Water",
+    "available_limit_sets",
+    "combine_limits",
+    "design_setpoint",
+    "load_limits",
     "minimum_solubility",
+    "permit_limits",
     "residual_curve",
     "speciate",
+    "uncertainty_band",
 ]
