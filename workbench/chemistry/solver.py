@@ -42,11 +42,14 @@ ABSENT = -400.0  # log10 concentration used for a component whose total is zero
 ACTIVITY_MODELS = ("davies", "ideal")
 TOL_RESIDUAL = 1e-12  # scaled mass-balance residual at which a Newton pass has converged
 TOL_STEP = 1e-10  # largest change of X at which a Newton pass has converged [log10 units]
+NEAR_RESIDUAL = 1e-6  # scaled residual below which full Newton steps are taken without a line search
 TOL_STALL = 1e-13  # change of X below which a Newton pass is at rounding level [log10 units]
 TOL_IONIC = 1e-10  # |log10(I computed / I used)| at which the ionic strength has converged
 TOL_SATURATION = 1e-9  # SI above which an absent solid is taken as supersaturated
 TOL_MASS = 1e-10  # verified relative mass-balance error
 FAR_START_LOG = 3.0  # a species this far (log10) above the largest total marks a start to abandon
+RESTORE_PH_WEIGHT = 1e-4  # relative freedom of log10 [H+] in the saturation restore (charge-balance mode)
+CYCLE_GUARD = 6  # after this many changes of a point's solids, they enter one at a time
 MAX_STEP_LOG = 2.0  # largest change of any species' log10 concentration in one Newton step
 MAX_IONIC_STRENGTH = (
     1.5  # mol/L; beyond it the Davies equation no longer gives usable activity coefficients (it turns
@@ -159,10 +162,13 @@ def solve(
         else:
             # continuation: solve a few points first, then start every point from its nearest solved neighbour
             # with the same totals (its solids, ionic strength and free concentrations): a few Newton steps each
-            coarse, nearest = _continuation_plan(totals, None if log_k is None else np.asarray(log_k))
+            coarse, nearest, below, above, weight = _continuation_plan(
+                totals, None if log_k is None else np.asarray(log_k)
+            )
             state.initial_guess(coarse, guess)
             _iterate(state, coarse)
             fresh = state.copy_from(nearest)
+            state.blend(below, above, weight)
             if fresh.size:
                 state.initial_guess(fresh, guess)
         _iterate(state, np.arange(n_pts))
@@ -172,10 +178,11 @@ def solve(
 CONTINUATION_MIN_POINTS = 24
 
 
-def _continuation_plan(totals: np.ndarray, log_k: np.ndarray | None) -> tuple[np.ndarray, np.ndarray]:
+def _continuation_plan(totals: np.ndarray, log_k: np.ndarray | None):
     """Coarse points to solve first and, for every point, the coarse point to start from. Points are grouped
     by identical totals (and constants); within a group (in the order given, e.g. along pH) every k-th point is
-    coarse, and each point starts from the nearest coarse point of its own group."""
+    coarse, and each point starts from the nearest coarse point of its own group, its free concentrations and
+    ionic strength interpolated between the coarse points below and above it (returned with the weight)."""
     n_pts = totals.shape[0]
     key = totals if log_k is None or log_k.ndim < 2 else np.hstack([totals, log_k])
     _, group = np.unique(key, axis=0, return_inverse=True)
@@ -191,8 +198,13 @@ def _continuation_plan(totals: np.ndarray, log_k: np.ndarray | None) -> tuple[np
     last_coarse = ((size - 1) // stride) * stride
     near_rank = np.minimum(np.rint(rank / stride).astype(int) * stride, last_coarse)
     nearest = order[starts[group] + near_rank]
+    low_rank = np.minimum((rank // stride) * stride, last_coarse)
+    high_rank = np.minimum(low_rank + stride, last_coarse)
+    below = order[starts[group] + low_rank]
+    above = order[starts[group] + high_rank]
+    weight = np.where(high_rank > low_rank, (rank - low_rank) / np.maximum(high_rank - low_rank, 1), 0.0)
     coarse = np.flatnonzero(rank % stride == 0)
-    return coarse, nearest
+    return coarse, nearest, below, above, weight
 
 
 def _iterate(state: _State, todo: np.ndarray) -> None:
@@ -266,6 +278,7 @@ class _State:
         self.active = np.zeros((n_pts, s), bool)
         self.ionic = np.full(n_pts, 1e-7)
         self.bracket = np.full((5, n_pts), np.nan)  # root search on log10 I (see update_ionic_strength)
+        self.changes = np.zeros(n_pts, int)  # how often each point's set of solids has changed
         self.comp_species = _component_rows(tab)
         # a solid can only form at a point where all its components are present
         self.possible = ~((np.abs(tab.b[None, :, 1:]) > 0) & ~self.present[:, None, 1:]).any(axis=2)
@@ -333,6 +346,21 @@ class _State:
             self.ionic[:] = np.maximum(eq.ionic_strength, 1e-9)
         self._hold_ph(np.arange(self.x.shape[0]))
 
+    def blend(self, below, above, weight) -> None:
+        """Interpolate free concentrations and log ionic strength between two solved points (where both share
+        the point's components); the solids stay those of the nearest point."""
+        same = (self.present == self.present[below]).all(axis=1) & (self.present == self.present[above]).all(
+            axis=1
+        )
+        p = np.flatnonzero(same & (weight > 0))
+        w = weight[p][:, None]
+        free = self.free[p]
+        mix = (1.0 - w) * self.x[below[p]] + w * self.x[above[p]]
+        self.x[p] = np.where(free, mix, self.x[p])
+        if not self.ideal:
+            u = (1.0 - w[:, 0]) * np.log10(self.ionic[below[p]]) + w[:, 0] * np.log10(self.ionic[above[p]])
+            self.ionic[p] = 10.0**u
+
     def copy_from(self, source: np.ndarray) -> np.ndarray:
         """Start each point from the state of point ``source[p]`` where the components present agree; returns
         the points that could not be started so (they need their own initial guess)."""
@@ -388,10 +416,13 @@ class _State:
         act = act[rows]
         si = np.where(act, self._si(sub), 0.0)
         bf = np.where(act[:, :, None] & self.free[sub][:, None, :], self.tab.b[None], 0.0)  # (k, s, m)
-        gram = bf @ bf.transpose(0, 2, 1)
+        # weighted least norm: moving the pH (charge-balance mode) to saturate a solid is a last resort
+        inv_w = np.ones(self.m)
+        inv_w[0] = RESTORE_PH_WEIGHT
+        gram = (bf * inv_w) @ bf.transpose(0, 2, 1)
         gram[:, np.arange(self.s), np.arange(self.s)] += np.where(act, 0.0, 1.0)
         y = _solve_batch(gram, si)
-        self.x[sub] -= np.einsum("psm,ps->pm", bf, y)
+        self.x[sub] -= np.einsum("psm,ps->pm", bf * inv_w, y)
         self._abandon_far_starts(idx)
 
     def _abandon_far_starts(self, idx):
@@ -466,7 +497,12 @@ class _State:
                 "pj,pj->p", np.where(self.free[pending], c @ self.tab.a - self.t[pending], 0.0), dx
             )
             # near the solution the change in Phi is below rounding: take the Newton step as it is
-            trial = ~done & (np.abs(slope) > 1e-10 * np.maximum(np.abs(phi0), 1e-300))
+            # (and close to it, where Newton converges quadratically, the line search would only slow it)
+            trial = (
+                ~done
+                & (np.abs(slope) > 1e-10 * np.maximum(np.abs(phi0), 1e-300))
+                & (residual > NEAR_RESIDUAL)
+            )
             self.x[pending[~done & ~trial]] = (x0 + lam[:, None] * dx)[~done & ~trial]
             for _ls in range(40):
                 if not trial.any():
@@ -573,10 +609,20 @@ class _State:
         """Drop solids with negative amounts; add supersaturated ones. Returns which points changed."""
         act = self.active[idx]
         drop = act & (self.n[idx] < 0.0)
+        # a point whose set keeps changing drops only its most negative solid (relative to what it could hold)
+        guard = self.changes[idx] >= CYCLE_GUARD
+        if (guard & drop.any(axis=1)).any():
+            scale = np.abs(self.t[idx, 1:]) @ (np.abs(self.tab.b[:, 1:]) > 0).T + 1e-300  # (k, s)
+            worst = np.argmin(np.where(drop, self.n[idx] / scale, np.inf), axis=1)
+            only = np.zeros_like(drop)
+            only[np.arange(idx.size), worst] = True
+            drop = np.where(guard[:, None], drop & only, drop)
         changed = drop.any(axis=1)
         act = act & ~drop
         si = self._si(idx)
         cand = ~act & self.possible[idx] & (si > TOL_SATURATION) & ~changed[:, None]
+        # a point whose set keeps changing takes one solid at a time (the most supersaturated): breaks cycles
+        one_at_a_time = self.changes[idx] >= CYCLE_GUARD
         if cand.any():
             score = np.where(cand, si / self.weight, -np.inf)
             order = np.argsort(-score, axis=1)
@@ -585,13 +631,14 @@ class _State:
             rows = np.arange(idx.size)
             for r in range(self.s):
                 k = order[:, r]
-                ok = cand[rows, k] & ~(claimed & uses[k]).any(axis=1)
+                ok = cand[rows, k] & ~(claimed & uses[k]).any(axis=1) & ~(one_at_a_time & (r > 0))
                 act[rows[ok], k[ok]] = True
                 claimed[ok] |= uses[k[ok]]
                 changed |= ok
             self._keep_independent(idx, act, cand & act)
         self.active[idx] = act
         self.n[idx] = np.where(act, self.n[idx], 0.0)
+        self.changes[idx] += changed
         return changed
 
     def _keep_independent(self, idx, act, added):
