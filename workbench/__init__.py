@@ -12,6 +12,14 @@ Results are theoretical equilibrium: confirm by jar tests; the local permit and 
 """
 
 from workbench.errors import ConvergenceError, DataError, InputError, ModelRangeError
+from workbench.treatment.calibration import (
+    ShiftFit,
+    calibrated_shift,
+    fit_solubility_shifts,
+    flag_jars,
+    overlay,
+)
+from workbench.treatment.jar_tests import read_jar_tests
 from workbench.treatment.limits import available_limit_sets, combine_limits, load_limits, permit_limits
 from workbench.treatment.setpoint import SetpointDesign, design_setpoint
 from workbench.treatment.solubility import SpeciationResult, minimum_solubility, residual_curve, speciate
@@ -24,15 +32,21 @@ __all__ = [
     "InputError",
     "ModelRangeError",
     "SetpointDesign",
+    "ShiftFit",
     "SpeciationResult",
     "UncertaintyBand",
     "Water",
     "available_limit_sets",
+    "calibrated_shift",
     "combine_limits",
     "design_setpoint",
+    "fit_solubility_shifts",
+    "flag_jars",
     "load_limits",
     "minimum_solubility",
+    "overlay",
     "permit_limits",
+    "read_jar_tests",
     "residual_curve",
     "speciate",
     "uncertainty_band",

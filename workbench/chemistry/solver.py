@@ -49,6 +49,7 @@ TOL_SATURATION = 1e-9  # SI above which an absent solid is taken as supersaturat
 TOL_MASS = 1e-10  # verified relative mass-balance error
 FAR_START_LOG = 3.0  # a species this far (log10) above the largest total marks a start to abandon
 RESTORE_PH_WEIGHT = 1e-4  # relative freedom of log10 [H+] in the saturation restore (charge-balance mode)
+WAIT_PASSES = 3  # passes a solid waits after its entry made a Newton pass fail
 CYCLE_GUARD = 6  # after this many changes of a point's solids, they enter one at a time
 MAX_STEP_LOG = 2.0  # largest change of any species' log10 concentration in one Newton step
 MAX_IONIC_STRENGTH = (
@@ -214,12 +215,15 @@ def _iterate(state: _State, todo: np.ndarray) -> None:
         state.restore(todo)
         stuck = state.newton(todo)
         if stuck.size:
-            # a pass that does not converge from where it started (e.g. a far neighbour's state) starts again
-            # once from the cold initial guess, without solids; a second failure is an error
-            if restarted[stuck].any():
-                state.fail(stuck[restarted[stuck]], "Newton iterations did not converge")
-            restarted[stuck] = True
-            state.restart(stuck)
+            # a pass that does not converge after solids were just added goes back to the set before, and
+            # those solids wait a few passes; otherwise (e.g. a far neighbour's state) the point starts again
+            # once from the cold initial guess, without solids; a further failure is an error
+            reverted = state.revert_added(stuck)
+            cold = stuck[~reverted]
+            if restarted[cold].any():
+                state.fail(cold[restarted[cold]], "Newton iterations did not converge")
+            restarted[cold] = True
+            state.restart(cold)
             continue
         changed = state.update_active_set(todo)
         moved = np.zeros_like(changed)
@@ -279,6 +283,8 @@ class _State:
         self.ionic = np.full(n_pts, 1e-7)
         self.bracket = np.full((5, n_pts), np.nan)  # root search on log10 I (see update_ionic_strength)
         self.changes = np.zeros(n_pts, int)  # how often each point's set of solids has changed
+        self.added = np.zeros((n_pts, s), bool)  # solids added at the last update
+        self.waiting = np.zeros((n_pts, s), int)  # passes a taken-back solid waits before it may enter again
         self.comp_species = _component_rows(tab)
         # a solid can only form at a point where all its components are present
         self.possible = ~((np.abs(tab.b[None, :, 1:]) > 0) & ~self.present[:, None, 1:]).any(axis=2)
@@ -330,6 +336,7 @@ class _State:
     # ------------------------------------------------------------------ start
     def restart(self, idx) -> None:
         """Cold start for the given points: initial guess, no solids, fresh ionic-strength search."""
+        self.added[idx] = False
         self.active[idx] = False
         self.n[idx] = 0.0
         self.bracket[:, idx] = np.nan
@@ -632,14 +639,29 @@ class _State:
             for r in range(self.s):
                 k = order[:, r]
                 ok = cand[rows, k] & ~(claimed & uses[k]).any(axis=1) & ~(one_at_a_time & (r > 0))
+                ok &= self.waiting[idx][rows, k] == 0
                 act[rows[ok], k[ok]] = True
                 claimed[ok] |= uses[k[ok]]
                 changed |= ok
             self._keep_independent(idx, act, cand & act)
+        self.added[idx] = act & ~self.active[idx]
+        self.waiting[idx] = np.maximum(self.waiting[idx] - 1, 0)
         self.active[idx] = act
         self.n[idx] = np.where(act, self.n[idx], 0.0)
         self.changes[idx] += changed
         return changed
+
+    def revert_added(self, idx) -> np.ndarray:
+        """Take back the solids added at the last update (they wait WAIT_PASSES passes); returns, per point,
+        whether there was anything to take back."""
+        added = self.added[idx]
+        some = added.any(axis=1)
+        rows = idx[some]
+        self.active[rows] &= ~added[some]
+        self.n[rows] = np.where(self.active[rows], self.n[rows], 0.0)
+        self.waiting[rows] = np.where(added[some], WAIT_PASSES, self.waiting[rows])
+        self.added[rows] = False
+        return some
 
     def _keep_independent(self, idx, act, added):
         """Where a newly added solid's saturation is fixed by solids already present (the phase rule), drop the
