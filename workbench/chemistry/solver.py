@@ -734,7 +734,10 @@ class _State:
             | ~np.isfinite(c).all(axis=1)
         )
         if self.ph is None:
-            bad |= np.abs(charge) > 1e-10 * np.maximum(c @ np.abs(tab.z), 1e-300)
+            # electroneutrality to the accuracy of the mass balances (the proton condition holds what the solids
+            # hold too, so its scale is the larger of the dissolved charge and the charge of the totals)
+            scale = np.maximum(c @ np.abs(tab.z), np.abs(self.t[:, 1:]) @ np.abs(_charges(tab)[1:]))
+            bad |= np.abs(charge) > TOL_MASS * np.maximum(scale, 1e-300)
         if bad.any():
             self.fail(np.flatnonzero(bad), "the solution failed verification")
         ionic = self._ionic_of(c)
