@@ -445,34 +445,46 @@ class _State:
 
     # ------------------------------------------------------------------ Newton passes
     def _system(self, idx, lg):
-        """KKT matrix and right-hand side for [dX (m), n (s)], mass rows scaled."""
-        tab, m, s = self.tab, self.m, self.s
+        """KKT matrix and right-hand side for [dX (m), n (K present solids)], mass rows scaled. Only the solids
+        present take part (K = the most present at any of these points; shorter sets are padded with inert
+        rows), which keeps the batched solves small. Returns the system, the concentrations, the row scale and
+        the solid index of each of the K slots with its validity."""
+        tab, m = self.tab, self.m
         c = self._conc(idx, lg)
         free = self.free[idx]
         act = self.active[idx]
         k = idx.size
+        n_slots = int(act.sum(axis=1).max(initial=0))
+        slots = np.argsort(~act, axis=1, kind="stable")[:, :n_slots]  # present solids first
+        valid = np.take_along_axis(act, slots, axis=1)
+        b = np.where(valid[:, :, None], tab.b[slots], 0.0)  # (k, K, m)
         dissolved = c @ tab.a
         scale = 1.0 / np.maximum(np.maximum(np.abs(self.t[idx]), c @ np.abs(tab.a)), 1e-300)
-        kkt = np.zeros((k, m + s, m + s))
-        rhs = np.zeros((k, m + s))
-        hess = (c @ self.outer).reshape(
-            k, m, m
-        )  # ln10 sum_i a_ij a_ik c_i, one matrix product for all points
-        kkt[:, :m, :m] = hess * scale[:, :, None]
-        kkt[:, :m, m:] = np.where(act[:, None, :], tab.b.T[None], 0.0) * scale[:, :, None]
+        u = m + n_slots
+        kkt = np.zeros((k, u, u))
+        rhs = np.zeros((k, u))
+        kkt[:, :m, :m] = (c @ self.outer).reshape(k, m, m) * scale[:, :, None]  # ln10 sum_i a_ij a_ik c_i
+        kkt[:, :m, m:] = b.transpose(0, 2, 1) * (scale * free)[:, :, None]
         rhs[:, :m] = (self.t[idx] - dissolved) * scale
         # components that are not unknowns keep their value
         fixed_rows = np.nonzero(~free)
         kkt[fixed_rows[0], fixed_rows[1], :] = 0.0
         kkt[fixed_rows[0], fixed_rows[1], fixed_rows[1]] = 1.0
         rhs[:, :m][~free] = 0.0
-        # present solids: b . dX = -SI (zero after restore); absent: n = 0
-        kkt[:, m:, :m] = np.where(act[:, :, None] & free[:, None, :], tab.b[None], 0.0)
-        rhs[:, m:] = np.where(act, -self._si(idx, lg), 0.0)
-        diag = np.arange(s)
-        kkt[:, m + diag, m + diag] = np.where(act, 0.0, 1.0)
-        kkt[:, :m, m:] *= free[:, :, None]
-        return kkt, rhs, c, scale
+        # present solids: b . dX = -SI (zero after restore); padding slots: n = 0
+        kkt[:, m:, :m] = b * free[:, None, :]
+        si = np.take_along_axis(self._si(idx, lg), slots, axis=1)
+        rhs[:, m:] = np.where(valid, -si, 0.0)
+        diag = np.arange(n_slots)
+        kkt[:, m + diag, m + diag] = np.where(valid, 0.0, 1.0)
+        return kkt, rhs, c, scale, slots, valid
+
+    def _scatter(self, values, slots, valid):
+        """Solid amounts from the K slots back to all candidate solids (absent: 0)."""
+        out = np.zeros((values.shape[0], self.s))
+        rows = np.nonzero(valid)
+        out[rows[0], slots[rows]] = values[rows]
+        return out
 
     def newton(self, idx) -> np.ndarray:
         """Newton passes at fixed activity coefficients, with a backtracking line search on Phi. Returns the
@@ -484,11 +496,12 @@ class _State:
             if pending.size == 0:
                 break
             lg = self._lg(pending)
-            kkt, rhs, c, scale = self._system(pending, lg)
+            kkt, rhs, c, scale, slots, valid = self._system(pending, lg)
             sol = _solve_batch(kkt, rhs)
-            dx, n_new = sol[:, :m], sol[:, m:]
-            self.n[pending] = np.where(self.active[pending], n_new, 0.0)
-            residual = np.abs(rhs[:, :m] - np.einsum("pjk,pk->pj", kkt[:, :m, m:], n_new)).max(axis=1)
+            dx, n_slot = sol[:, :m], sol[:, m:]
+            n_new = self._scatter(n_slot, slots, valid)
+            self.n[pending] = n_new
+            residual = np.abs(rhs[:, :m] - np.einsum("pjk,pk->pj", kkt[:, :m, m:], n_slot)).max(axis=1)
             step_size = np.abs(dx).max(axis=1)
             # converged, or stalled at rounding level: the latter happens when the present solids cannot all
             # stay (huge multipliers of mixed sign); the active-set update then drops the negative ones, and the
@@ -594,7 +607,7 @@ class _State:
         comp_dlg = dlg[:, self.comp_species]
         g = comp_dlg @ tab.a.T - dlg  # d log10 c_i / du at fixed X
         lg = self._lg(idx)
-        kkt, _, _, scale = self._system(idx, lg)
+        kkt, _, _, scale, slots, valid = self._system(idx, lg)
         d_rhs = np.zeros((idx.size, kkt.shape[1]))
         d_rhs[:, :m] = -(LN10 * (c * g) @ tab.a) * scale
         d_rhs[:, :m][~self.free[idx]] = 0.0
@@ -602,8 +615,8 @@ class _State:
         if self.ph is not None:  # X_H follows the activity coefficient of H+ to hold the pH
             dxh = -comp_dlg[:, 0]
             d_rhs[:, 0] = dxh
-        act = self.active[idx]
-        d_rhs[:, m:] = np.where(act, -(comp_dlg @ tab.b.T + tab.b[:, 0][None, :] * dxh[:, None]), 0.0)
+        d_si = -(comp_dlg @ tab.b.T + tab.b[:, 0][None, :] * dxh[:, None])  # (k, s)
+        d_rhs[:, m:] = np.where(valid, np.take_along_axis(d_si, slots, axis=1), 0.0)
         dx = _solve_batch(kkt, d_rhs)[:, :m]
         dlogc = g + dx @ tab.a.T  # total d log10 c_i / du
         dc = LN10 * c * dlogc
