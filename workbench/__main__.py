@@ -1,8 +1,12 @@
-"""Command line: ``python -m workbench lab [--port N] [--no-browser]``.
+"""Command line: ``python -m workbench lab [--port N] [--no-browser]`` and
+``python -m workbench figures SCENARIO.toml --out DIR [--formats png,svg,pdf,html]``.
 
 ``lab`` starts JupyterLab on the repository's ``notebooks/`` folder, bound to 127.0.0.1 and protected by a
 fresh random token, opening the setpoint-design notebook, and prints the URL (with the token) to open.
-Subcommands are registered in :func:`build_parser`, so further ones (e.g. ``figures``) slot in beside it.
+``figures`` computes a scenario's figure pack (figures with captions, tables, cautions, sources) and writes it
+into DIR, printing each file written; a bad scenario or option prints the message (field, value, what is
+allowed) and exits with status 2; a missing browser for PNG/SVG/PDF exits with status 1.
+Subcommands are registered in :func:`build_parser`.
 Heavy packages (JupyterLab, plotly, ipywidgets) are imported only inside the subcommand that needs them.
 """
 
@@ -71,6 +75,37 @@ def _run_lab(args: argparse.Namespace) -> int:
     return 0
 
 
+def _run_figures(args: argparse.Namespace) -> int:
+    """Write a scenario's figure pack into ``args.out``; print the files written."""
+    from workbench.errors import InputError
+    from workbench.export import (
+        ExportError,
+        check_formats,
+        export_figure_pack,
+    )  # heavy: only for this command
+    from workbench.scenario import read_scenario
+
+    try:
+        formats = check_formats(args.formats)
+        scenario = read_scenario(args.scenario)
+        if scenario.uncertainty.samples:
+            print(
+                f"workbench figures: Monte Carlo with {scenario.uncertainty.samples} samples; this takes a while",
+                file=sys.stderr,
+                flush=True,
+            )
+        written = export_figure_pack(scenario, args.out, formats=formats)
+    except InputError as exc:
+        print(f"workbench figures: {exc}", file=sys.stderr)
+        return 2
+    except ExportError as exc:
+        print(f"workbench figures: {exc}", file=sys.stderr)
+        return 1
+    for path in written:
+        print(path)
+    return 0
+
+
 def _port(text: str) -> int:
     """argparse type: a TCP port number 1-65535."""
     try:
@@ -91,6 +126,18 @@ def build_parser() -> argparse.ArgumentParser:
     lab.add_argument("--port", type=_port, default=None, help="TCP port (default: a free one)")
     lab.add_argument("--no-browser", action="store_true", help="do not open a web browser")
     lab.set_defaults(handler=_run_lab)
+
+    figures = commands.add_parser(
+        "figures", help="write a scenario's figures (PNG, SVG, PDF, HTML), tables, cautions and sources"
+    )
+    figures.add_argument("scenario", help="scenario file (.toml, the workbench's own schema)")
+    figures.add_argument("--out", required=True, help="folder to write into (created if needed)")
+    figures.add_argument(
+        "--formats",
+        default="png,svg,pdf,html",
+        help="comma-separated figure formats (default: png,svg,pdf,html)",
+    )
+    figures.set_defaults(handler=_run_figures)
     return parser
 
 
