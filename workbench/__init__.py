@@ -12,6 +12,7 @@ Results are theoretical equilibrium: confirm by jar tests; the local permit and 
 """
 
 from workbench.errors import ConvergenceError, DataError, InputError, ModelRangeError
+from workbench.scenario import Scenario, read_scenario, save_scenario
 from workbench.treatment.calibration import (
     ShiftFit,
     calibrated_shift,
@@ -31,6 +32,7 @@ __all__ = [
     "DataError",
     "InputError",
     "ModelRangeError",
+    "Scenario",
     "SetpointDesign",
     "ShiftFit",
     "SpeciationResult",
@@ -47,6 +49,8 @@ __all__ = [
     "overlay",
     "permit_limits",
     "read_jar_tests",
+    "read_scenario",
+    "save_scenario",
     "residual_curve",
     "speciate",
     "uncertainty_band",
