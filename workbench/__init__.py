@@ -20,6 +20,15 @@ from workbench.treatment.calibration import (
     flag_jars,
     overlay,
 )
+from workbench.treatment.dose import (
+    daily_table,
+    dose_curve,
+    dose_for_ph,
+    fluoride_at_setpoint,
+    raw_water_acidity,
+    reagent_ceiling_ph,
+    sludge_at_dose,
+)
 from workbench.treatment.jar_tests import read_jar_tests
 from workbench.treatment.limits import available_limit_sets, combine_limits, load_limits, permit_limits
 from workbench.treatment.setpoint import SetpointDesign, design_setpoint
@@ -40,17 +49,24 @@ __all__ = [
     "Water",
     "available_limit_sets",
     "calibrated_shift",
+    "daily_table",
     "combine_limits",
     "design_setpoint",
+    "dose_curve",
+    "dose_for_ph",
     "fit_solubility_shifts",
     "flag_jars",
+    "fluoride_at_setpoint",
     "load_limits",
     "minimum_solubility",
     "overlay",
     "permit_limits",
+    "raw_water_acidity",
     "read_jar_tests",
     "read_scenario",
+    "reagent_ceiling_ph",
     "save_scenario",
+    "sludge_at_dose",
     "residual_curve",
     "speciate",
     "uncertainty_band",

@@ -30,3 +30,9 @@ WINDOW_FILL = "rgba(0, 158, 115, 0.12)"
 def metal_style(metal: str) -> tuple[str, str]:
     """(colour, dash) of a metal."""
     return METAL_STYLE.get(metal, FALLBACK)
+
+
+# titration figure: the curve, the pH setpoint and the reagent's ceiling
+TITRATION_LINE = "#0072B2"
+SETPOINT_LINE = "#009E73"
+CEILING_LINE = "#D55E00"
