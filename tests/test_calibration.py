@@ -34,9 +34,11 @@ PH = np.array([7.5, 8.0, 8.5, 9.0, 9.5, 10.0, 10.5, 11.0])
 
 def synthetic(water, ph, *, shift=None, sigma=0.0, seed=0, carry=0.01, metals=None):
     """Tidy jar results from the core: dissolved = prediction x 10**N(0, sigma) (capped at the influent);
-    total = dissolved + ``carry`` x the precipitated metal (a per-jar mapping or one share for all)."""
+    total = dissolved + ``carry`` x the precipitated metal (a per-jar mapping or one share for all); lime dose =
+    the core's titration dose for the jar's pH (so the dose-consistency flag stays silent on clean data)."""
     rng = np.random.default_rng(seed)
     curve = wb.residual_curve(water, ph, solubility_shift=shift)
+    doses = [wb.dose_for_ph(water, "lime", float(p)) for p in ph]
     rows = []
     for k, p in enumerate(ph):
         jar = f"J{k + 1}"
@@ -45,7 +47,7 @@ def synthetic(water, ph, *, shift=None, sigma=0.0, seed=0, carry=0.01, metals=No
             influent = water.metals_mg_l[metal]
             d = min(curve[metal].iloc[k] * 10 ** rng.normal(0.0, sigma), influent)
             for fraction, v in (("dissolved", d), ("total", d + share * (influent - d))):
-                rows.append((jar, float(p), 100.0 + 40 * k, "lime", metal, fraction, v, False, np.nan))
+                rows.append((jar, float(p), doses[k], "lime", metal, fraction, v, False, np.nan))
     return pd.DataFrame(rows, columns=["jar", "pH", "dose_mg_l", "reagent", "metal", "fraction", "value_mg_l",
                                        "censored", "detection_limit_mg_l"])  # fmt: skip
 
@@ -299,3 +301,20 @@ def test_figure_draws_each_result_as_measured():
     assert below.marker.symbol == "triangle-down" and list(below.x) == [9.5] and list(below.y) == [0.02]
     assert fig.layout.yaxis.type == "log" and fig.layout.yaxis.title.text == "metal (mg/L)"
     assert line.line.color == "#0072B2"  # Zn's palette colour
+
+
+def test_ph_off_dose_flag_fires_on_a_misread_jar_and_is_silent_on_the_demo():
+    # the demo jars' doses are the model's own titration doses (tests/reference/make_demo_jar_tests.py): no flag;
+    # a jar whose pH reads 1.5 units above what its dose gives is flagged with the reason
+    from workbench.scenario import demo_water
+    from workbench.treatment.jar_tests import demo_jar_tests_path
+
+    tidy = wb.read_jar_tests(demo_jar_tests_path())
+    water = demo_water()
+    assert "ph_off_dose" not in set(wb.flag_jars(tidy, water)["flag"])
+    misread = tidy.copy()
+    misread.loc[misread["jar"] == "4", "pH"] += 1.5
+    flags = wb.flag_jars(misread, water)
+    hit = flags[flags["flag"] == "ph_off_dose"]
+    assert hit["jars"].tolist() == ["4"]
+    assert "titration" in hit["reason"].iloc[0]

@@ -10,8 +10,8 @@ review has something to find:
 - total metal = dissolved + an invented share of the precipitated metal left in the supernatant (1-2 % per jar,
   25 % in jar 8, which settled badly), times 10**N(0, 0.03);
 - measured pH = target (6.4 for the untreated control, then 7.0 to 11.0 in 0.5 steps) + N(0, 0.04), rounded to
-  0.01; lime dose = the strong base the core needs to hold that pH (charge balance of the analysis, from
-  ``speciate``) minus that at pH 6.4, as Ca(OH)2 at an invented purity of 92 %, rounded to 5 mg/L.
+  0.01; lime dose = the dose of lime (default purity, data/reagents) that the core's titration gives for that pH
+  (``dose_for_ph``, which counts the calcite the lime's calcium precipitates), rounded to 1 mg/L.
 
 The random generator is seeded, so the file is reproduced exactly. The seed is the first of 1, 2, 3, ... whose
 fitted 95 % intervals all cover the invented shifts (with seed 1, Ni's draws happen to sit high and its interval
@@ -43,8 +43,6 @@ DL_MG_L = {
 }
 UG_L = ("Cd",)  # metals written in ug/L
 CARRY_OVER = {"8": 0.25}  # jar -> invented share of the precipitated metal left in the supernatant
-CA_OH_2_G_MOL = 40.078 + 2 * (15.999 + 1.008)  # standard atomic weights (data/atomic_weights.csv)
-PURITY = 0.92  # invented
 OUT = Path(__file__).resolve().parents[2] / "data" / "demo" / "demo_jar_tests.csv"
 
 HEADER_COMMENT = """\
@@ -65,7 +63,6 @@ def make() -> str:
     metals = list(water.metals_mg_l)
     targets = [6.4] + [7.0 + 0.5 * k for k in range(9)]
     ph = np.round(np.array(targets) + np.r_[0.0, rng.normal(0.0, 0.04, 9)], 2)
-    base = wb.speciate(water, 6.4).strong_base_eq_l
     dissolved = wb.residual_curve(water, ph, solubility_shift=SHIFT)
     head = ["jar", "reagent", "dose (mg/L)", "pH", "temperature_c", "settling_min"]
     for m in metals:
@@ -77,8 +74,7 @@ def make() -> str:
     out.writerow(head)
     for k, p in enumerate(ph):
         jar = str(k + 1)
-        held = wb.speciate(water, float(p)).strong_base_eq_l
-        dose = 0.0 if k == 0 else 5.0 * round((held - base) / 2 * CA_OH_2_G_MOL * 1000 / PURITY / 5.0)
+        dose = 0.0 if k == 0 else float(round(wb.dose_for_ph(water, "lime", float(p))))
         share = CARRY_OVER.get(jar, rng.uniform(0.01, 0.02))
         cells = [jar, "none" if k == 0 else "lime", f"{dose:g}", f"{p:.2f}", "22.0", "30"]
         for m in metals:

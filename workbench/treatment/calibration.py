@@ -652,6 +652,7 @@ def flag_jars(
     far_log: float = 1.0,
     carryover_ratio: float = 3.0,
     uncaptured_fraction: float = 0.1,
+    ph_tolerance: float = 0.5,
     solids: str = "fresh",
     activity: str = "davies",
 ) -> pd.DataFrame:
@@ -669,6 +670,11 @@ def flag_jars(
         lower bounds); a below-detection total is not compared.
     ``minimum_ph_differs`` (per metal)
         The observed bottom and the predicted bottom do not overlap (:func:`compare_minima`).
+    ``ph_off_dose`` (per jar)
+        The measured pH differs by more than ``ph_tolerance`` (default 0.5) from the pH the model's titration
+        gives for the jar's reagent and dose (:func:`workbench.dose_curve`, default purity): a dosing or pH
+        measurement error, an unmeasured acidity or buffer, or a reagent of another strength. Jars whose reagent
+        is not one of the model's reagents are not checked.
 
     Returns
     -------
@@ -678,6 +684,7 @@ def flag_jars(
     """
     ov = overlay(tidy, water, solids=solids, activity=activity)
     flags = _complexant_flags(ov, far_log) + _carry_over_flags(ov, carryover_ratio, uncaptured_fraction)
+    flags += _dose_flags(tidy, water, ph_tolerance, solids)
     minima = compare_minima(tidy, water, solids=solids, activity=activity)
     for metal, m in minima.iterrows():
         if m["agree"] is not None and not m["agree"]:
@@ -701,6 +708,36 @@ def flag_jars(
                 }
             )
     return pd.DataFrame(flags, columns=["flag", "metal", "jars", "reason"])
+
+
+def _dose_flags(tidy: pd.DataFrame, water: Water, tolerance: float, solids: str) -> list[dict]:
+    from workbench.treatment.dose import dose_curve
+    from workbench.treatment.reagents import REAGENTS
+
+    if water.ph is None:
+        return []  # the titration starts from the measured pH of the influent
+    jars = tidy.drop_duplicates("jar")[["jar", "reagent", "dose_mg_l", "pH"]]
+    out = []
+    for reagent, rows in jars.groupby("reagent", sort=False):
+        if reagent not in REAGENTS:
+            continue
+        predicted = dose_curve(water, reagent, rows["dose_mg_l"].to_numpy(dtype=float), solids=solids)["pH"]
+        for (_, jar), ph_model in zip(rows.iterrows(), predicted.to_numpy(), strict=True):
+            if abs(jar["pH"] - ph_model) > tolerance:
+                out.append(
+                    {
+                        "flag": "ph_off_dose",
+                        "metal": "",
+                        "jars": str(jar["jar"]),
+                        "reason": (
+                            f"jar {jar['jar']}: pH {jar['pH']:g} measured after {jar['dose_mg_l']:g} mg/L of "
+                            f"{reagent}, but the titration of this influent gives pH {ph_model:.2f} for that dose: "
+                            "check the dose and the pH reading, the reagent's strength, or an unmeasured acidity or "
+                            "buffer in the water."
+                        ),
+                    }
+                )
+    return out
 
 
 def _span(a: float, b: float) -> str:
