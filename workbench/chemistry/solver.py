@@ -439,7 +439,7 @@ class _State:
         # only species holding a component with a total (H+ and OH- follow the pH, not a total)
         holds = (self.present[idx, 1:].astype(float) @ (np.abs(self.tab.a[:, 1:]) > 0).T) > 0
         top = np.where(holds, logc, -np.inf).max(axis=1)
-        far = top > np.log10(np.abs(self.t[idx, 1:]).max(axis=1) + 1e-300) + FAR_START_LOG
+        far = top > np.log10(np.abs(self.t[idx, 1:]).max(axis=1, initial=0.0) + 1e-300) + FAR_START_LOG
         if far.any():
             self.restart(idx[far])
 
