@@ -156,7 +156,7 @@ def design_setpoint(
     else:
         stages = _two_stage(water, metals, targets, tss, opts, lo, hi) if two_stage else None
         if stages is not None:
-            table = stages[-1].pop("table")
+            table = _with_limits(stages[-1].pop("table"), used)
         else:
             table = _table(
                 water, used, targets, float(curve.index[np.argmin((curve / targets).max(axis=1))]), tss, opts
@@ -431,6 +431,17 @@ def _stage_table(targets, dissolved, final, tss, ph):
     df.index.name = "metal"
     df.attrs["ph"] = ph
     return df
+
+
+def _with_limits(table: pd.DataFrame, used: pd.DataFrame) -> pd.DataFrame:
+    """A stage table with the limit columns of the single-stage table (limit, basis, meets_limit, source)."""
+    out = table.copy()
+    out.insert(0, "limit_mg_l", used["limit_mg_l"])
+    out.insert(1, "basis", used["basis"])
+    out["meets_limit"] = out["compared_mg_l"] <= used["limit_mg_l"]
+    out["source"] = used["source"] if "source" in used.columns else ""
+    out.attrs = dict(table.attrs)
+    return out
 
 
 def _run(ph, ok, i) -> tuple[float, float]:

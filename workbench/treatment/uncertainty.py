@@ -26,6 +26,7 @@ from workbench.treatment.water import Water, as_array
 HELD_SOURCES = ("iapws_r11_07",)
 MAX_SAMPLES = 20_000
 POINTS_PER_CHUNK = 20_000
+PROGRESS_STEPS = 10  # a band is computed in at least this many batches (each reported to ``progress``)
 
 
 @dataclass
@@ -139,7 +140,8 @@ def uncertainty_band(
     sigma = row_uncertainty(default_uncertainty) * uncertainty_scale
     rng = np.random.default_rng(seed)
     perturb = rng.standard_normal((samples, sigma.size)) * sigma  # drawn at once: chunking cannot change it
-    per_chunk = max(1, POINTS_PER_CHUNK // grid.size)
+    # at most POINTS_PER_CHUNK points per solver call, and at least PROGRESS_STEPS calls so progress() moves
+    per_chunk = max(1, min(POINTS_PER_CHUNK // grid.size, -(-samples // PROGRESS_STEPS)))
     out = np.empty((samples, grid.size, len(metals)))
     for start in range(0, samples, per_chunk):
         stop = min(samples, start + per_chunk)
