@@ -344,7 +344,7 @@ def model_warnings(water: Water, tab, eq) -> list[str]:
         )
     t = eq.totals[0]
     frac = eq.conc[:, :, None] * np.abs(tab.a)[None] / np.where(t > 0, t, np.inf)[None, None, :]
-    significant = frac[:, :, 1:].max(axis=(0, 2)) > 0.01
+    significant = frac[:, :, 1:].max(axis=(0, 2), initial=0.0) > 0.01
     rows = data.rows
     n_comp = len(data.components)
     memory_sp = [
