@@ -160,7 +160,8 @@ class Water:
         return self.ph if self.ph is not None else DEFAULT_ALKALINITY_PH
 
     def totals(self) -> dict[str, float]:
-        """Total of each component present. [mol/L]"""
+        """Total of each component present; every metal entered is listed, at 0 when entered as 0 (so results
+        keep a column for it). [mol/L]"""
         data = database.load()
         out = {}
         for key, mg in self.metals_mg_l.items():
@@ -172,7 +173,8 @@ class Water:
                 out[comp] = mg / 1000.0 / data.input_molar_mass[comp]
         if self.alkalinity_mg_l_caco3 > 0:
             out["CO3^2-"] = self._carbonate_total()
-        return {c: v for c, v in out.items() if v > 0}
+        metals = {METALS[key] for key in self.metals_mg_l}
+        return {c: v for c, v in out.items() if v > 0 or c in metals}
 
     def _carbonate_total(self) -> float:
         """Total carbonate from alkalinity at the measured pH. [mol/L]
