@@ -34,9 +34,25 @@ def mixed_water():
     import workbench as wb
 
     return wb.Water(
-        metals_mg_l={"Cu": 18.0, "Ni": 12.0, "Zn": 25.0, "Cd": 0.8, "Pb": 1.5, "Cr": 9.0, "Fe": 6.0, "Al": 3.0},
-        ph=6.4, temperature_c=22.0, alkalinity_mg_l_caco3=150.0, sulfate_mg_l=850.0, chloride_mg_l=180.0,
-        sodium_mg_l=320.0, calcium_mg_l=60.0, magnesium_mg_l=15.0, ammonia_mg_l_n=5.0,
+        metals_mg_l={
+            "Cu": 18.0,
+            "Ni": 12.0,
+            "Zn": 25.0,
+            "Cd": 0.8,
+            "Pb": 1.5,
+            "Cr": 9.0,
+            "Fe": 6.0,
+            "Al": 3.0,
+        },
+        ph=6.4,
+        temperature_c=22.0,
+        alkalinity_mg_l_caco3=150.0,
+        sulfate_mg_l=850.0,
+        chloride_mg_l=180.0,
+        sodium_mg_l=320.0,
+        calcium_mg_l=60.0,
+        magnesium_mg_l=15.0,
+        ammonia_mg_l_n=5.0,
     )
 
 
@@ -61,8 +77,14 @@ def case_single_metal(repeat):
 
     agree = np.abs(solve() / closed_form() - 1).max()
     a, b = _median_time(closed_form, repeat), _median_time(solve, repeat)
-    return [("1 zinc curve, 1000 pH: closed form", a, ""), ("1 zinc curve, 1000 pH: solver", b,
-            f"{b / a:.0f}x the closed form (target 5x); max relative difference {agree:.1e}")]
+    return [
+        ("1 zinc curve, 1000 pH: closed form", a, ""),
+        (
+            "1 zinc curve, 1000 pH: solver",
+            b,
+            f"{b / a:.0f}x the closed form (target 5x); max relative difference {agree:.1e}",
+        ),
+    ]
 
 
 def case_mixture(repeat):
@@ -70,9 +92,9 @@ def case_mixture(repeat):
     import workbench as wb
 
     water = mixed_water()
-    ph = np.round(np.arange(4.0, 14.0001, 0.05), 3)
+    ph = np.linspace(4.0, 14.0, 281)
     t = _median_time(lambda: wb.residual_curve(water, ph), repeat)
-    return [("2 mixed water, 281 pH", t, "target 30 ms")]
+    return [("2 mixed water, 281 pH (4-14)", t, "target 30 ms")]
 
 
 def case_chempy(repeat):
@@ -96,9 +118,18 @@ def case_chempy(repeat):
     theirs = (time.perf_counter() - t0) / ph.size
     mine = _median_time(lambda: solver.solve(tab, t, ph, activity="ideal"), repeat) / ph.size
     # our own correctness: mass balance and saturation verified inside solve(); here against the closed form
-    return [("3 chempy, per point", theirs, f"{100 * good / ph.size:.0f} % of points correct (agree to 1e-5 and "
-             "pass checks)"), ("3 ours, per point", mine, f"{theirs / mine:.0f}x faster than chempy (target 1000x);"
-                               " 100 % verified")]
+    return [
+        (
+            "3 chempy, per point",
+            theirs,
+            f"{100 * good / ph.size:.0f} % of points correct (agree to 1e-5 and pass checks)",
+        ),
+        (
+            "3 ours, per point",
+            mine,
+            f"{theirs / mine:.0f}x faster than chempy (target 1000x); 100 % verified",
+        ),
+    ]
 
 
 def case_monte_carlo(samples, quick):
@@ -106,7 +137,7 @@ def case_monte_carlo(samples, quick):
     import workbench as wb
 
     water = mixed_water()
-    ph = np.round(np.arange(4.0, 14.0001, 0.05), 3)
+    ph = np.linspace(4.0, 14.0, 281)
     tracemalloc.start()
     t0 = time.perf_counter()
     wb.uncertainty_band(water, ph, samples=samples, seed=1)
@@ -119,12 +150,54 @@ def case_monte_carlo(samples, quick):
     return [(f"5 Monte Carlo {samples} x 281 pH", elapsed, note)]
 
 
+def case_dose(repeat):
+    """Titration curve of the mixed water with lime, 200 doses; and the dose for pH 9.5."""
+    import workbench as wb
+
+    water = mixed_water()
+    doses = np.linspace(0.0, 800.0, 200)
+    curve = _median_time(lambda: wb.dose_curve(water, "lime", doses), repeat)
+    root = _median_time(lambda: wb.dose_for_ph(water, "lime", 9.5), repeat)
+    return [
+        ("4 lime dose curve, 200 doses", curve, "target 50 ms"),
+        ("4 dose_for_ph (lime, pH 9.5)", root, ""),
+    ]
+
+
+def case_widget(repeat):
+    """Setpoint panel: from a margin change to updated figure data (headless), demo scenario."""
+    from workbench.scenario import demo_scenario_path, read_scenario
+    from workbench.widgets import SetpointPanel
+
+    panel = SetpointPanel(read_scenario(demo_scenario_path()))
+    margins = iter(np.linspace(0.30, 0.90, 200))
+
+    def move():
+        before = panel.figure.data[0].y
+        panel.fields["margin"].value = float(next(margins))
+        assert panel.figure.data is not None and before is not None
+
+    return [
+        (
+            "6 widget: margin change -> figure data",
+            _median_time(move, repeat),
+            "target 150 ms (includes the reagent dose at the new setpoint)",
+        )
+    ]
+
+
 def case_import(repeat):
     """Time of `import workbench` in a fresh interpreter."""
     code = "import time; t=time.perf_counter(); import workbench; print(time.perf_counter()-t)"
     env = {k: v for k, v in os.environ.items() if k != "PYTHONDONTWRITEBYTECODE"}
-    times = [float(subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, env=env,
-                                  check=True).stdout) for _ in range(repeat)]
+    times = [
+        float(
+            subprocess.run(
+                [sys.executable, "-c", code], capture_output=True, text=True, env=env, check=True
+            ).stdout
+        )
+        for _ in range(repeat)
+    ]
     return [("7 import workbench", statistics.median(times), "target 1.5 s")]
 
 
@@ -139,6 +212,8 @@ def main(argv=None) -> int:
     rows += case_single_metal(repeat)
     rows += case_mixture(repeat)
     rows += case_chempy(min(repeat, 3))
+    rows += case_dose(repeat)
+    rows += case_widget(repeat)
     rows += case_monte_carlo(100 if args.quick else 1000, args.quick)
     rows += case_import(3)
     print(f"{'case':48s} {'time':>12s}  note")
