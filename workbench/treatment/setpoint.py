@@ -131,6 +131,8 @@ def design_setpoint(
         0.1 pH grid, and the probability that each metal meets its limit at the setpoint; ``progress(done,
         total)`` is called as samples complete.
     """
+    if not isinstance(water, Water):
+        raise InputError("water", type(water).__name__, "a workbench Water is required")
     margin = _check_margin(margin)
     if rule not in RULES:
         raise InputError("rule", rule, f"allowed {', '.join(RULES)}")

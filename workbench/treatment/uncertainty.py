@@ -123,7 +123,12 @@ def uncertainty_band(
             or not lo <= v <= hi
         ):
             raise InputError(name, v, f"allowed {lo:g} to {hi:g}")
-    q = tuple(float(x) for x in quantiles)
+    try:
+        q = tuple(float(x) for x in quantiles)
+    except (TypeError, ValueError):
+        raise InputError(
+            "quantiles", quantiles, "three increasing fractions in [0, 1], e.g. (0.05, 0.5, 0.95)"
+        ) from None
     if len(q) != 3 or not 0.0 <= q[0] < q[1] < q[2] <= 1.0:
         raise InputError(
             "quantiles", quantiles, "three increasing fractions in [0, 1], e.g. (0.05, 0.5, 0.95)"

@@ -248,6 +248,9 @@ def metal_component(key: str) -> str:
 
 def as_array(values) -> np.ndarray:
     """pH values as a 1-D float array, checked: finite, 0-14."""
+    items = np.atleast_1d(np.asarray(values, dtype=object))
+    if any(isinstance(v, (bool, np.bool_)) or not isinstance(v, numbers.Real) for v in items.ravel()):
+        raise InputError("ph", values, "numbers from 0 to 14 are required")
     arr = np.atleast_1d(np.asarray(values, dtype=float))
     if arr.ndim != 1 or arr.size == 0:
         raise InputError("ph", values, "one pH value or a 1-D sequence of them is required")
