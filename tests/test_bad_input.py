@@ -85,3 +85,20 @@ def test_speciate_without_ph_needs_a_measured_ph():
     with pytest.raises(InputError, match="ph"):
         wb.speciate(wb.Water(metals_mg_l={"Zn": 1.0}))
     assert wb.speciate(wb.Water(metals_mg_l={"Zn": 1.0}, ph=6.0)).ph == 6.0
+
+
+def test_minimum_solubility_of_a_water_without_metals_is_an_empty_table():
+    table = wb.minimum_solubility(wb.Water(sodium_mg_l=46, chloride_mg_l=71))
+    assert table.empty and "ph_min" in table.columns
+
+
+def test_uncertainty_band_takes_limits_as_a_mapping():
+    water = wb.Water(metals_mg_l={"Zn": 10.0}, ph=5.0)
+    band = wb.uncertainty_band(water, [9.0], samples=3, seed=1, limits={"Zn": 1.0}, setpoint_ph=9.0)
+    assert 0.0 <= band.probability_meets["Zn"] <= 1.0
+
+
+def test_ionic_strength_refusal_states_a_value_above_the_limit():
+    with pytest.raises(wb.ModelRangeError) as err:
+        wb.residual_curve(wb.Water(magnesium_mg_l=12160, chloride_mg_l=35473), 7.0)
+    assert err.value.value > 1.5

@@ -715,7 +715,7 @@ class _State:
             label = "pH" if self.ph is not None else "point"
             raise ModelRangeError(
                 "ionic strength",
-                round(float(self.ionic[bad].max()), 2),
+                float(f"{float(self.ionic[bad].max()):.4g}"),
                 f"the Davies activity model is used up to {MAX_IONIC_STRENGTH} mol/L; this water exceeds it at "
                 f"{label} {', '.join(f'{v:.3g}' for v in np.asarray(where)[:8])} (too concentrated, or a pH too "
                 "extreme to hold with strong acid or base)",

@@ -236,6 +236,9 @@ def minimum_solubility(
         forms anywhere in the range has ``solid`` = "none", ``ph_min`` NaN and the influent as residual.
     """
     lo, hi = _check_range(ph_range)
+    columns = ["ph_min", "residual_mg_l", "solid", "ph_low_2x", "ph_high_2x", "influent_mg_l", "note"]
+    if not water.metals_mg_l:  # pure water or major ions only: nothing to report
+        return pd.DataFrame(columns=columns, index=pd.Index([], name="metal"))
     grid = np.round(np.arange(lo, hi + 1e-9, 0.05), 6)
     opts = dict(solids=solids, activity=activity, solubility_shift=solubility_shift)
     tab, eq = equilibrium(water, grid, **opts)

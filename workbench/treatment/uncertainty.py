@@ -163,6 +163,8 @@ def uncertainty_band(
     qs = np.quantile(out, q, axis=0)
     frames = [pd.DataFrame(qs[i], index=nominal.index, columns=metals) for i in range(3)]
     prob = None
+    if limits is not None and not isinstance(limits, pd.Series):
+        limits = pd.Series(dict(limits), dtype=float)
     if limits is not None and setpoint_ph is not None:
         i = int(np.flatnonzero(np.isclose(grid, float(setpoint_ph)))[0])
         prob = pd.Series(
