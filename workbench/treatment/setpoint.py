@@ -20,7 +20,7 @@ from workbench.chemistry import database, solver, tableau
 from workbench.errors import InputError
 from workbench.treatment.cautions import cautions
 from workbench.treatment.limits import check_limits
-from workbench.treatment.solubility import check_shift, equilibrium, model_warnings
+from workbench.treatment.solubility import check_ph_range, check_shift, equilibrium, model_warnings
 from workbench.treatment.uncertainty import UncertaintyBand, uncertainty_band
 from workbench.treatment.water import METALS, Water
 
@@ -136,7 +136,7 @@ def design_setpoint(
     margin = _check_margin(margin)
     if rule not in RULES:
         raise InputError("rule", rule, f"allowed {', '.join(RULES)}")
-    lo, hi = _check_range(ph_range)
+    lo, hi = check_ph_range(ph_range)
     if not isinstance(step, numbers.Real) or not (0.001 <= step <= 0.5):
         raise InputError("step", step, "allowed 0.001 to 0.5 pH units")
     tss = _check_tss(effluent_tss_mg_l)
@@ -203,16 +203,6 @@ def _check_margin(margin) -> float:
     if not 0.0 < margin <= 1.0:
         raise InputError("margin", margin, "allowed (0, 1]: the design target is margin x limit")
     return float(margin)
-
-
-def _check_range(ph_range) -> tuple[float, float]:
-    try:
-        lo, hi = (float(v) for v in ph_range)
-    except (TypeError, ValueError):
-        raise InputError("ph_range", ph_range, "a pair (low, high) of pH values is required") from None
-    if not (0.0 <= lo < hi <= 14.0) or hi - lo < 0.5:
-        raise InputError("ph_range", ph_range, "allowed 0 <= low < high <= 14, at least 0.5 apart")
-    return lo, hi
 
 
 def _check_tss(tss):

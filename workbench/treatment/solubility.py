@@ -235,7 +235,7 @@ def minimum_solubility(
         ``ph_min``), ``ph_low_2x``, ``ph_high_2x``, ``influent_mg_l``, ``note``. A metal for which no solid
         forms anywhere in the range has ``solid`` = "none", ``ph_min`` NaN and the influent as residual.
     """
-    lo, hi = _check_range(ph_range)
+    lo, hi = check_ph_range(ph_range)
     columns = ["ph_min", "residual_mg_l", "solid", "ph_low_2x", "ph_high_2x", "influent_mg_l", "note"]
     if not water.metals_mg_l:  # pure water or major ions only: nothing to report
         return pd.DataFrame(columns=columns, index=pd.Index([], name="metal"))
@@ -325,7 +325,8 @@ def _cross(grid, curve, level, inside, outside) -> float:
     return float(grid[inside] + frac * (grid[outside] - grid[inside]))
 
 
-def _check_range(ph_range) -> tuple[float, float]:
+def check_ph_range(ph_range) -> tuple[float, float]:
+    """Validate a (low, high) pH range: 0 <= low < high <= 14, at least 0.5 apart."""
     try:
         lo, hi = (float(v) for v in ph_range)
     except (TypeError, ValueError):
