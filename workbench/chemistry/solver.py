@@ -590,7 +590,14 @@ class _State:
         with np.errstate(divide="ignore", invalid="ignore"):
             newton = u - r / slope
         lo, hi = np.fmin(br[0], br[2]), np.fmax(br[0], br[2])
-        inside = np.isfinite(newton) & (~both | ((newton > lo) & (newton < hi))) & (np.abs(newton - u) <= 1.0)
+        # unbracketed, a Newton step must go where the residual points (a positive slope, from strong feedback
+        # of the activity coefficients, would otherwise send it away from the root)
+        toward = np.sign(newton - u) == np.sign(r)
+        inside = (
+            np.isfinite(newton)
+            & np.where(both, (newton > lo) & (newton < hi), toward)
+            & (np.abs(newton - u) <= 1.0)
+        )
         new = np.where(inside, newton, np.where(both, bracketed, u + np.clip(r, -1.0, 1.0)))
         self.bracket[:, idx] = br
         self.ionic[idx] = np.where(moved, 10.0**new, self.ionic[idx])
