@@ -3,7 +3,7 @@
 With one hydroxide/oxide solid present and the pH fixed, [M] = *Ks0 [H+]^z, and the dissolved total is
 C = sum_pq p * beta_pq [M]^p [H+]^-q (Baes & Mesmer 1976, ch. 2; Stumm & Morgan, Aquatic Chemistry, ch. 6).
 The constants below are typed in from the published sources named beside them, independently of data/, so a
-transcription error in data/ or an arithmetic error in the solver makes these tests fail. Ideal activities
+copying error in data/ or an arithmetic error in the solver makes these tests fail. Ideal activities
 (I = 0 as published) and 25 C. Agreement required: 1e-6 relative.
 """
 
