@@ -59,6 +59,7 @@ MAX_IONIC_STRENGTH = (
 INIT_ITER = 30  # per-component steps of the initial guess
 MAX_ITER = 100  # Newton iterations per pass
 EARLY_DROP_ITER = 4  # after this many iterations a pass stops where a present solid has a negative amount
+MAX_IONIC_HALVINGS = 6  # halvings of one ionic-strength step that a failed Newton pass may take
 MAX_ROUNDS = 200  # passes (active-set and ionic-strength updates)
 
 
@@ -219,14 +220,19 @@ def _iterate(state: _State, todo: np.ndarray) -> None:
             # those solids wait a few passes; otherwise (e.g. a far neighbour's state) the point starts again
             # once from the cold initial guess, without solids; a further failure is an error
             reverted = state.revert_added(stuck)
-            cold = stuck[~reverted]
+            # a pass that fails just after an ionic-strength step goes back to the solution before it and
+            # takes half that step (in log I), a few times at most, before starting cold
+            halved = state.halve_ionic_step(stuck[~reverted])
+            cold = stuck[~reverted][~halved]
             if restarted[cold].any():
                 state.fail(cold[restarted[cold]], "Newton iterations did not converge")
             restarted[cold] = True
             state.restart(cold)
             continue
         changed = state.update_active_set(todo)
+        state.ionic_before[todo[changed]] = np.nan  # the solution kept before belongs to another set of solids
         moved = np.zeros_like(changed)
+        state.remember(todo[~changed])
         moved[~changed] = state.update_ionic_strength(todo[~changed])
         state.check_range(todo)
         todo = todo[moved | changed]
@@ -282,6 +288,11 @@ class _State:
         self.active = np.zeros((n_pts, s), bool)
         self.ionic = np.full(n_pts, 1e-7)
         self.bracket = np.full((5, n_pts), np.nan)  # root search on log10 I (see update_ionic_strength)
+        # the settled state before the last ionic-strength step (see halve_ionic_step)
+        self.x_before = np.zeros((n_pts, m))
+        self.n_before = np.zeros((n_pts, s))
+        self.ionic_before = np.full(n_pts, np.nan)
+        self.halvings = np.zeros(n_pts, int)
         self.changes = np.zeros(n_pts, int)  # how often each point's set of solids has changed
         self.added = np.zeros((n_pts, s), bool)  # solids added at the last update
         self.waiting = np.zeros((n_pts, s), int)  # passes a taken-back solid waits before it may enter again
@@ -340,6 +351,7 @@ class _State:
         self.active[idx] = False
         self.n[idx] = 0.0
         self.bracket[:, idx] = np.nan
+        self.ionic_before[idx] = np.nan
         self.initial_guess(idx, -self.x[:, 0].copy() if self.ph is None else None)
 
     def start_from(self, eq: Equilibrium) -> None:
@@ -383,6 +395,7 @@ class _State:
         self.n[dst] = self.n[src]
         self.active[dst] = self.active[src]
         self.ionic[dst] = self.ionic[src]
+        self.ionic_before[dst] = np.nan
         return unmatched
 
     def initial_guess(self, idx, ph_guess):
@@ -670,6 +683,25 @@ class _State:
         self.n[idx] = np.where(act, self.n[idx], 0.0)
         self.changes[idx] += changed
         return changed
+
+    def remember(self, idx) -> None:
+        """Keep the settled solution and ionic strength of these points, before an ionic-strength step."""
+        self.x_before[idx] = self.x[idx]
+        self.n_before[idx] = self.n[idx]
+        self.ionic_before[idx] = self.ionic[idx]
+        self.halvings[idx] = 0
+
+    def halve_ionic_step(self, idx) -> np.ndarray:
+        """Where the last ionic-strength step of these points can be halved, go back to the solution before it
+        and take half the step; returns, per point, whether it was halved."""
+        ok = np.isfinite(self.ionic_before[idx]) & (self.halvings[idx] < MAX_IONIC_HALVINGS)
+        ok &= self.ionic[idx] != self.ionic_before[idx]
+        rows = idx[ok]
+        self.x[rows] = self.x_before[rows]
+        self.n[rows] = self.n_before[rows]
+        self.ionic[rows] = np.sqrt(self.ionic[rows] * self.ionic_before[rows])
+        self.halvings[rows] += 1
+        return ok
 
     def revert_added(self, idx) -> np.ndarray:
         """Take back the solids added at the last update (they wait WAIT_PASSES passes); returns, per point,
