@@ -40,6 +40,7 @@ from workbench.errors import ConvergenceError, ModelRangeError
 LN10 = np.log(10.0)
 ABSENT = -400.0  # log10 concentration used for a component whose total is zero
 ACTIVITY_MODELS = ("davies", "ideal")
+ENGINES = ("compiled", "numpy")
 TOL_RESIDUAL = 1e-12  # scaled mass-balance residual at which a Newton pass has converged
 TOL_STEP = 1e-10  # largest change of X at which a Newton pass has converged [log10 units]
 NEAR_RESIDUAL = 1e-6  # scaled residual below which full Newton steps are taken without a line search
@@ -47,6 +48,8 @@ TOL_STALL = 1e-13  # change of X below which a Newton pass is at rounding level 
 TOL_IONIC = 1e-10  # |log10(I computed / I used)| at which the ionic strength has converged
 TOL_SATURATION = 1e-9  # SI above which an absent solid is taken as supersaturated
 TOL_MASS = 1e-10  # verified relative mass-balance error
+TOL_IONIC_VERIFIED = 1e-8  # verified |log10(I of the solution / I of the activity coefficients)|
+VERIFY_SATURATION = 1e-7  # verified: |SI| of a present solid, SI of an absent one at most this
 FAR_START_LOG = 3.0  # a species this far (log10) above the largest total marks a start to abandon
 RESTORE_PH_WEIGHT = 1e-4  # relative freedom of log10 [H+] in the saturation restore (charge-balance mode)
 WAIT_PASSES = 3  # passes a solid waits after its entry made a Newton pass fail
@@ -116,7 +119,8 @@ def solve(
     ph_guess: np.ndarray | float = 7.0,
     log_k: np.ndarray | None = None,
     log_ks: np.ndarray | None = None,
-    start: Equilibrium | None = None,
+    start: Equilibrium | StartRows | None = None,
+    engine: str = "compiled",
 ) -> Equilibrium:
     """Solve the equilibrium at N points.
 
@@ -137,6 +141,10 @@ def solve(
     start : Equilibrium, optional
         A solution of the same system at the same N points (e.g. the nominal constants) to start from: its free
         concentrations, solids and ionic strength. Makes perturbed solves take a few Newton steps.
+    engine : {"compiled", "numpy"}
+        ``"compiled"`` (default): the compiled per-point kernel (:mod:`workbench.chemistry.kernel`), with the
+        numpy solver taking any point the kernel gives up; ``"numpy"``: the numpy solver alone (the reference
+        the kernel is tested against). Both verify every answer in the same way.
 
     Returns
     -------
@@ -149,35 +157,90 @@ def solve(
     """
     if activity not in ACTIVITY_MODELS:
         raise ValueError(f"activity: got {activity!r}; allowed {ACTIVITY_MODELS}")
+    if engine not in ENGINES:
+        raise ValueError(f"engine: got {engine!r}; allowed {ENGINES}")
     fixed = ph is not None
     totals = np.atleast_2d(np.asarray(totals, dtype=float))
     n_pts = max(totals.shape[0], np.size(ph)) if fixed else totals.shape[0]
     ph_arr = np.broadcast_to(np.asarray(ph, dtype=float), (n_pts,)).copy() if fixed else None
     totals = np.broadcast_to(totals, (n_pts, len(tab.components))).copy()
-    with _single_threaded_blas():
-        state = _State(tab, totals, ph_arr, activity, log_k, log_ks)
-        guess = np.broadcast_to(np.asarray(ph_guess, float), (n_pts,))
-        if start is not None:
-            state.start_from(start)
-        elif n_pts <= CONTINUATION_MIN_POINTS:
-            state.initial_guess(np.arange(n_pts), guess)
-        else:
-            # continuation: solve a few points first, then start every point from its nearest solved neighbour
-            # with the same totals (its solids, ionic strength and free concentrations): a few Newton steps each
-            coarse, nearest, below, above, weight = _continuation_plan(
-                totals, None if log_k is None else np.asarray(log_k)
-            )
-            state.initial_guess(coarse, guess)
-            _iterate(state, coarse)
-            fresh = state.copy_from(nearest)
-            state.blend(below, above, weight)
-            if fresh.size:
-                state.initial_guess(fresh, guess)
-        _iterate(state, np.arange(n_pts))
-        return state.finish()
+    guess = np.broadcast_to(np.asarray(ph_guess, float), (n_pts,))
+    _limit_blas()
+    if engine == "numpy":
+        return _solve_numpy(tab, totals, ph_arr, activity, guess, log_k, log_ks, start).finish()
+    # the compiled kernel, which verifies what it returns; the points it gives up go to the numpy solver, whose
+    # answers are verified in the same way (State.finish)
+    state = _State(tab, totals, ph_arr, activity, log_k, log_ks)
+    if start is not None:
+        state.start_from(start, hold_ph=False)  # the kernel holds the pH itself
+    eq, rest = state.kernel(start is not None, guess)
+    if rest.size:
+        sub = _solve_numpy(
+            tab,
+            totals[rest],
+            None if ph_arr is None else ph_arr[rest],
+            activity,
+            guess[rest],
+            None if log_k is None else state.log_k[rest],
+            None if log_ks is None else state.log_ks[rest],
+            None if start is None else StartRows(start, rest),
+        ).finish()
+        for name in _ROW_FIELDS:
+            getattr(eq, name)[rest] = getattr(sub, name)
+    return eq
+
+
+_ROW_FIELDS = (
+    "log_free",
+    "conc",
+    "log_gamma",
+    "solid_amount",
+    "saturation_index",
+    "ionic_strength",
+    "ph",
+    "strong_base",
+    "totals",
+)
+
+
+class StartRows:
+    """A start for :func:`solve` taken from rows of a solution (e.g. the nominal solution repeated for each Monte
+    Carlo sample): its free concentrations, solid amounts, ionic strength and totals at those rows."""
+
+    def __init__(self, eq: Equilibrium, rows: np.ndarray):
+        self.log_free = eq.log_free[rows]
+        self.solid_amount = eq.solid_amount[rows]
+        self.ionic_strength = eq.ionic_strength[rows]
+        self.totals = eq.totals[rows]
+
+
+def _solve_numpy(tab, totals, ph_arr, activity, guess, log_k, log_ks, start) -> _State:
+    """The numpy solver (vectorised over points, with every safeguard): returns the settled working state."""
+    n_pts = totals.shape[0]
+    state = _State(tab, totals, ph_arr, activity, log_k, log_ks)
+    if start is not None:
+        state.start_from(start)
+    elif n_pts <= CONTINUATION_MIN_POINTS:
+        state.initial_guess(np.arange(n_pts), guess)
+    else:
+        # continuation: solve a few points first, then start every point from its nearest solved neighbour
+        # with the same totals (its solids, ionic strength and free concentrations): a few Newton steps each
+        coarse, nearest, below, above, weight = _continuation_plan(
+            totals, None if log_k is None else np.asarray(log_k)
+        )
+        state.initial_guess(coarse, guess)
+        _iterate(state, coarse)
+        fresh = state.copy_from(nearest)
+        state.blend(below, above, weight)
+        if fresh.size:
+            state.initial_guess(fresh, guess)
+    _iterate(state, np.arange(n_pts))
+    return state
 
 
 CONTINUATION_MIN_POINTS = 24
+KERNEL_MIN_CHUNK = 64  # fewer points per chunk than this are not worth a thread (each chunk starts cold)
+KERNEL_THREAD_WORK = 20_000  # points x species below which one thread is faster than handing work to two
 
 
 def _continuation_plan(totals: np.ndarray, log_k: np.ndarray | None):
@@ -241,18 +304,19 @@ def _iterate(state: _State, todo: np.ndarray) -> None:
     state.fail(todo, "the solids present and the ionic strength did not settle")
 
 
-_BLAS = None
+_BLAS_LIMITED = False
 
 
-def _single_threaded_blas():
-    """Run BLAS on one thread: the solver's many small matrix products are slower with threads (and with
-    other processes on the cores)."""
-    global _BLAS
-    if _BLAS is None:
-        from threadpoolctl import ThreadpoolController
+def _limit_blas() -> None:
+    """Set BLAS to one thread, once per process. The solver's matrices are
+    small: BLAS threads gain nothing on them, and after each call they spin on the other core for a while,
+    where the compiled kernel's second thread runs (measured: a fifth of all CPU time in a Monte Carlo run)."""
+    global _BLAS_LIMITED
+    if not _BLAS_LIMITED:
+        from threadpoolctl import threadpool_limits
 
-        _BLAS = ThreadpoolController()
-    return _BLAS.limit(limits=1, user_api="blas")
+        threadpool_limits(limits=1, user_api="blas")
+        _BLAS_LIMITED = True
 
 
 class _State:
@@ -305,6 +369,89 @@ class _State:
         with np.errstate(divide="ignore"):
             self.log_a = np.where(a_pos > 0, np.log10(np.where(a_pos > 0, a_pos, 1.0)), -np.inf)
 
+    # ------------------------------------------------------------------ compiled fast path
+    def kernel(self, use_start: bool, guess: np.ndarray) -> np.ndarray:
+        """Solve the points with the compiled kernel (:mod:`workbench.chemistry.kernel`), in place. Without a
+        start, points are solved in order, each from the one before (a continuation along the curve), in one chunk
+        per thread. Returns the points it gave up."""
+        from workbench.chemistry import kernel
+
+        tab = self.tab
+        n_pts = self.x.shape[0]
+        nz_rows, nz_cols = np.nonzero(tab.a)
+        a_ptr = np.searchsorted(nz_rows, np.arange(len(tab.species) + 1)).astype(np.int64)
+        if not use_start:
+            self.x[:, 1:] = np.where(self.present[:, 1:], 0.0, ABSENT)
+        # threads pay only for enough work (points x species); with a start, chunks cost nothing extra and
+        # several per thread balance the load; without, each chunk's first point starts cold: one per thread
+        threads = kernel.threads() if n_pts * len(tab.species) >= KERNEL_THREAD_WORK else 1
+        per_chunk = max(KERNEL_MIN_CHUNK, -(-n_pts // (threads * (4 if use_start and threads > 1 else 1))))
+        chunks = np.unique(np.append(np.arange(0, n_pts, per_chunk), n_pts)).astype(np.int64)
+        ok = np.zeros(n_pts, bool)
+        self.stats = np.zeros((n_pts, 3), np.int64)
+        ionic_ceiling = np.inf if self.ideal else MAX_IONIC_STRENGTH
+        n_sp, n_so = len(tab.species), len(tab.solids)
+        conc = np.empty((n_pts, n_sp))
+        log_gamma = np.empty((n_pts, n_sp))
+        si = np.empty((n_pts, n_so))
+        dissolved = np.empty((n_pts, self.m))
+        ionic = np.empty(n_pts)
+        charge = np.empty(n_pts)
+        args = (
+            np.ascontiguousarray(self.log_k if self.log_k.strides[0] else self.log_k[:1]),
+            np.ascontiguousarray(self.log_ks if self.log_ks.strides[0] else self.log_ks[:1]),
+            np.ascontiguousarray(tab.a, dtype=float),
+            a_ptr,
+            nz_cols.astype(np.int64),
+            np.ascontiguousarray(tab.a[nz_rows, nz_cols], dtype=float),
+            np.ascontiguousarray(self.log_a),
+            np.ascontiguousarray(tab.b, dtype=float),
+            np.ascontiguousarray(tab.z, dtype=float),
+            self.comp_species.astype(np.int64),
+            np.ascontiguousarray(self.weight, dtype=float),
+            float(tab.davies_a),
+            self.ideal,
+            self.ph is not None,
+            np.zeros(n_pts) if self.ph is None else np.ascontiguousarray(self.ph),
+            np.ascontiguousarray(guess, dtype=float),
+            self.t,
+            self.free,
+            self.present,
+            np.ascontiguousarray(self.possible),
+            self.x,
+            self.n,
+            self.active,
+            self.ionic,
+            use_start,
+            self.x.copy(),
+            self.active.copy(),
+            self.ionic.copy(),
+            ionic_ceiling,
+            ok,
+            self.stats,
+            conc,
+            log_gamma,
+            si,
+            dissolved,
+            ionic,
+            charge,
+        )
+        kernel.run_chunks(args, chunks)
+        ph = -(self.x[:, 0] + log_gamma[:, self.comp_species[0]])
+        eq = Equilibrium(
+            tableau=tab,
+            log_free=self.x,
+            conc=conc,
+            log_gamma=log_gamma,
+            solid_amount=np.where(self.active, self.n, 0.0),
+            saturation_index=si,
+            ionic_strength=ionic,
+            ph=ph,
+            strong_base=-charge if self.ph is not None else np.zeros(n_pts),
+            totals=self.t,
+        )
+        return eq, np.flatnonzero(~ok)
+
     # ------------------------------------------------------------------ pieces of the model
     def _lg(self, idx):
         """log10 activity coefficients of the species at the current ionic strength (Davies)."""
@@ -354,7 +501,7 @@ class _State:
         self.ionic_before[idx] = np.nan
         self.initial_guess(idx, -self.x[:, 0].copy() if self.ph is None else None)
 
-    def start_from(self, eq: Equilibrium) -> None:
+    def start_from(self, eq: Equilibrium, hold_ph: bool = True) -> None:
         """Start every point from a previous solution of the same system at the same points."""
         if eq.log_free.shape != self.x.shape or eq.solid_amount.shape != self.n.shape:
             raise ValueError("start: a solution of the same system at the same number of points is required")
@@ -363,7 +510,8 @@ class _State:
         self.active[:] = eq.solid_amount > 0
         if not self.ideal:
             self.ionic[:] = np.maximum(eq.ionic_strength, 1e-9)
-        self._hold_ph(np.arange(self.x.shape[0]))
+        if hold_ph:
+            self._hold_ph(np.arange(self.x.shape[0]))
 
     def blend(self, below, above, weight) -> None:
         """Interpolate free concentrations and log ionic strength between two solved points (where both share
@@ -780,8 +928,8 @@ class _State:
         charge = c @ tab.z
         bad = (
             (rel.max(axis=1, initial=0.0) > TOL_MASS)
-            | ((si > 1e-7) & ~self.active & self.possible).any(axis=1)
-            | ((np.abs(si) > 1e-7) & self.active).any(axis=1)
+            | ((si > VERIFY_SATURATION) & ~self.active & self.possible).any(axis=1)
+            | ((np.abs(si) > VERIFY_SATURATION) & self.active).any(axis=1)
             | (n < 0).any(axis=1)
             | ~np.isfinite(c).all(axis=1)
         )
@@ -790,9 +938,11 @@ class _State:
             # hold too, so its scale is the larger of the dissolved charge and the charge of the totals)
             scale = np.maximum(c @ np.abs(tab.z), np.abs(self.t[:, 1:]) @ np.abs(_charges(tab)[1:]))
             bad |= np.abs(charge) > TOL_MASS * np.maximum(scale, 1e-300)
+        ionic = self._ionic_of(c)
+        if not self.ideal:  # the activity coefficients belong to the ionic strength of the solution
+            bad |= ~(np.abs(np.log10(np.maximum(ionic, 1e-300) / self.ionic)) <= TOL_IONIC_VERIFIED)
         if bad.any():
             self.fail(np.flatnonzero(bad), "the solution failed verification")
-        ionic = self._ionic_of(c)
         ph = -(self.x[:, 0] + lg[:, self.comp_species[0]])
         return Equilibrium(
             tableau=tab,

@@ -84,7 +84,7 @@ _OWEN_SLOPE_PER_C = 1.991e-3
 _DEBYE_HUCKEL_PREFACTOR = 1.82483e6
 
 # Davies (1962): the linear term's coefficient.
-_DAVIES_LINEAR = 0.3
+DAVIES_LINEAR = 0.3
 
 
 def _temperature_k(temperature_c: ArrayLike, name: str = "temperature_c") -> np.ndarray:
@@ -363,7 +363,7 @@ def davies_log_gamma(charge: ArrayLike, ionic_strength_mol_l: ArrayLike, a: Arra
         raise InputError("ionic_strength_mol_l", value, "allowed: a finite value >= 0 mol/L")
     z = np.asarray(charge, dtype=float)
     root = np.sqrt(ionic_strength)
-    return -np.asarray(a, dtype=float) * z**2 * (root / (1.0 + root) - _DAVIES_LINEAR * ionic_strength)  # [1]
+    return -np.asarray(a, dtype=float) * z**2 * (root / (1.0 + root) - DAVIES_LINEAR * ionic_strength)  # [1]
 
 
 def van_t_hoff(log_k_25c: ArrayLike, delta_h_kj_mol: ArrayLike, temperature_c: ArrayLike) -> np.ndarray:

@@ -13,7 +13,7 @@ from __future__ import annotations
 import math
 import numbers
 from collections.abc import Callable
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
@@ -154,7 +154,7 @@ def uncertainty_band(
         log_beta = data.log_beta(water.temperature_c, row_shift=perturb[start:stop])
         log_k = np.repeat(log_beta[:, tab.species_index], grid.size, axis=0)
         log_ks = np.repeat(log_beta[:, tab.solid_index] - shift, grid.size, axis=0)
-        first = _tile(nominal_eq, k)
+        first = solver.StartRows(nominal_eq, np.tile(np.arange(grid.size), k))
         eq = solver.solve(tab, first.totals, np.tile(grid, k), log_k=log_k, log_ks=log_ks, start=first)
         values = metal_mg_l(water, tab, eq)
         out[start:stop] = np.stack([values[m].reshape(k, grid.size) for m in metals], axis=2)
@@ -187,21 +187,6 @@ def uncertainty_band(
         float(uncertainty_scale),
         prob,
         None if setpoint_ph is None else float(setpoint_ph),
-    )
-
-
-def _tile(eq: solver.Equilibrium, k: int) -> solver.Equilibrium:
-    return replace(
-        eq,
-        log_free=np.tile(eq.log_free, (k, 1)),
-        conc=np.tile(eq.conc, (k, 1)),
-        log_gamma=np.tile(eq.log_gamma, (k, 1)),
-        solid_amount=np.tile(eq.solid_amount, (k, 1)),
-        saturation_index=np.tile(eq.saturation_index, (k, 1)),
-        ionic_strength=np.tile(eq.ionic_strength, k),
-        ph=np.tile(eq.ph, k),
-        strong_base=np.tile(eq.strong_base, k),
-        totals=np.tile(eq.totals, (k, 1)),
     )
 
 

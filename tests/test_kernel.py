@@ -1,0 +1,167 @@
+"""The compiled kernel (the default engine) against the numpy solver, and its safeguards.
+
+Both engines solve the same equations and verify their answers the same way, but they are separate code
+(a compiled per-point loop with continuation from the point before, and a vectorised numpy solver with every
+safeguard). The numpy solver is itself checked against outside references (tests/test_chempy_crosscheck.py,
+tests/test_check_curves.py, tests/test_closed_form.py); here the kernel must reproduce it on every kind of call the
+workbench makes: residual curves (fixed pH, Davies), titration (charge balance, lime), perturbed constants from a
+start (Monte Carlo), ideal single metals, and waters that need the numpy solver's safeguards.
+"""
+
+from __future__ import annotations
+
+import multiprocessing
+
+import numpy as np
+import pytest
+
+import workbench as wb
+from workbench.chemistry import solver, tableau
+from workbench.errors import ModelRangeError
+from workbench.treatment.dose import dose_curve
+from workbench.treatment.solubility import equilibrium
+
+REL = 1e-8  # relative agreement of dissolved totals above FLOOR mol/L
+FLOOR = 1e-16
+
+
+def mixed_water(**changes):
+    fields = dict(
+        metals_mg_l={"Cu": 18.0, "Ni": 12.0, "Zn": 25.0, "Cd": 0.8, "Pb": 1.5, "Cr": 9.0, "Fe": 6.0, "Al": 3.0},
+        ph=6.4,
+        temperature_c=22.0,
+        alkalinity_mg_l_caco3=150.0,
+        sulfate_mg_l=850.0,
+        chloride_mg_l=180.0,
+        sodium_mg_l=320.0,
+        calcium_mg_l=60.0,
+        magnesium_mg_l=15.0,
+        ammonia_mg_l_n=5.0,
+    )
+    fields.update(changes)
+    return wb.Water(**fields)
+
+
+def both(tab, totals, ph=None, **kw):
+    return (
+        solver.solve(tab, totals, ph, engine="compiled", **kw),
+        solver.solve(tab, totals, ph, engine="numpy", **kw),
+    )
+
+
+def assert_same(fast, ref):
+    d_fast, d_ref = fast.dissolved()[:, 1:], ref.dissolved()[:, 1:]
+    big = np.abs(d_ref) > FLOOR
+    rel = np.abs(d_fast[big] / d_ref[big] - 1.0)
+    assert rel.max(initial=0.0) < REL, f"dissolved totals differ by {rel.max():.2e} (relative)"
+    np.testing.assert_allclose(fast.ph, ref.ph, rtol=0, atol=1e-9)
+    np.testing.assert_allclose(fast.ionic_strength, ref.ionic_strength, rtol=1e-8)
+    assert ((fast.solid_amount > 0) == (ref.solid_amount > 0)).all(), "different solids present"
+    scale = np.maximum(np.abs(ref.solid_amount), 1e-300)
+    present = ref.solid_amount > 1e-14
+    assert (np.abs(fast.solid_amount - ref.solid_amount)[present] / scale[present]).max(initial=0.0) < 1e-6
+
+
+def test_mixed_water_residual_curve_matches_the_numpy_solver():
+    tab, _ = equilibrium(mixed_water(), np.array([7.0]))
+    t = equilibrium(mixed_water(), np.array([7.0]))[1].totals[0]
+    assert_same(*both(tab, t, np.linspace(4.0, 14.0, 281)))
+
+
+@pytest.mark.parametrize("temperature_c", [5.0, 25.0, 45.0])
+def test_mixed_water_at_temperature_matches(temperature_c):
+    water = mixed_water(temperature_c=temperature_c)
+    tab, eq = equilibrium(water, np.array([7.0]))
+    assert_same(*both(tab, eq.totals[0], np.linspace(5.0, 12.5, 76)))
+
+
+def test_single_metal_ideal_matches():
+    tab = tableau.build(("Zn^2+",), 25.0, "aged")
+    t = np.zeros(len(tab.components))
+    t[1] = 0.01
+    assert_same(*both(tab, t, np.linspace(6.0, 14.0, 500), activity="ideal"))
+
+
+def test_lime_titration_in_charge_balance_mode_matches():
+    water = mixed_water()
+    doses = np.linspace(0.0, 800.0, 60)
+    fast = dose_curve(water, "lime", doses)
+    import workbench.chemistry.solver as s
+
+    original = s.solve
+    try:
+        s.solve = lambda *a, **k: original(*a, **{**k, "engine": "numpy"})
+        ref = dose_curve(water, "lime", doses)
+    finally:
+        s.solve = original
+    np.testing.assert_allclose(fast["pH"].to_numpy(), ref["pH"].to_numpy(), rtol=0, atol=1e-8)
+
+
+def test_perturbed_constants_from_a_start_match():
+    """The Monte Carlo call: each point's constants shifted, starting from the nominal solution."""
+    water = mixed_water()
+    grid = np.linspace(4.0, 13.0, 91)  # (shifted constants can take pH 14 past the activity model's range)
+    tab, nominal = equilibrium(water, grid)
+    rng = np.random.default_rng(7)
+    k = 6
+    log_k = np.repeat(tab.log_k[None, :] + 0.3 * rng.standard_normal((k, tab.log_k.size)), grid.size, axis=0)
+    log_ks = np.repeat(tab.log_ks[None, :] + 0.3 * rng.standard_normal((k, tab.log_ks.size)), grid.size, axis=0)
+    start = solver.StartRows(nominal, np.tile(np.arange(grid.size), k))
+    fast, ref = both(tab, start.totals, np.tile(grid, k), log_k=log_k, log_ks=log_ks, start=start)
+    assert_same(fast, ref)
+
+
+def test_points_the_kernel_gives_up_are_solved_by_the_numpy_solver(monkeypatch):
+    """Every point handed over (here: all, by a kernel that gives up everything) comes back solved and verified."""
+    from workbench.chemistry import kernel
+
+    tab, eq = equilibrium(mixed_water(), np.array([7.0]))
+    ph = np.linspace(4.0, 14.0, 41)
+    ref = solver.solve(tab, eq.totals[0], ph, engine="numpy")
+    real = kernel.run_chunks
+
+    def give_up_every_other(args, chunks):
+        real(args, chunks)
+        ok = args[kernel.CHUNKS_ARGUMENT + 1]
+        ok[::2] = False
+
+    monkeypatch.setattr(kernel, "run_chunks", give_up_every_other)
+    assert_same(solver.solve(tab, eq.totals[0], ph), ref)
+
+
+def test_too_concentrated_is_refused_by_either_engine():
+    tab = tableau.build(("Na+", "SO4^2-"), 25.0, "fresh")
+    t = np.zeros(len(tab.components))
+    t[tab.component("Na+")] = 4.0
+    t[tab.component("SO4^2-")] = 2.0
+    for engine in ("compiled", "numpy"):
+        with pytest.raises(ModelRangeError, match="ionic strength"):
+            solver.solve(tab, t, np.array([7.0]), engine=engine)
+
+
+def test_unknown_engine_is_refused_with_the_allowed_values():
+    tab = tableau.build(("Zn^2+",), 25.0, "aged")
+    with pytest.raises(ValueError, match=r"engine: got 'fast'; allowed \('compiled', 'numpy'\)"):
+        solver.solve(tab, np.zeros(len(tab.components)), 7.0, engine="fast")
+
+
+def _solve_in_child(queue):
+    tab = tableau.build(("Zn^2+",), 25.0, "aged")
+    t = np.zeros(len(tab.components))
+    t[1] = 1e-3
+    eq = solver.solve(tab, np.tile(t, (4000, 1)), np.linspace(7.0, 12.0, 4000), activity="ideal")
+    queue.put(float(eq.dissolved()[:, 1].min()))
+
+
+def test_a_forked_process_can_solve_after_its_parent_used_threads():
+    tab = tableau.build(("Zn^2+",), 25.0, "aged")
+    t = np.zeros(len(tab.components))
+    t[1] = 1e-3
+    parent = solver.solve(tab, np.tile(t, (4000, 1)), np.linspace(7.0, 12.0, 4000), activity="ideal")
+    ctx = multiprocessing.get_context("fork")
+    queue = ctx.Queue()
+    child = ctx.Process(target=_solve_in_child, args=(queue,))
+    child.start()
+    child.join(120)
+    assert child.exitcode == 0
+    assert queue.get(timeout=5) == pytest.approx(float(parent.dissolved()[:, 1].min()), rel=1e-12)

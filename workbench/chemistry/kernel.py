@@ -1,0 +1,1144 @@
+"""Compiled per-point equilibrium kernel: the solver's fast path.
+
+The same method as :mod:`workbench.chemistry.solver` (Newton-Raphson on the convex dual in log10 free
+concentrations, an active set of solids, Davies activity coefficients with the ionic strength iterated outside
+the Newton passes), written as one loop over points and compiled with numba. Each point starts from the solution
+of the point before it in the same chunk (a curve along pH or dose is a continuation: two or three Newton steps
+per point) or from a given start; only the first point of a chunk, or a point whose components differ from its
+neighbour's, starts cold.
+
+The kernel is kept simple on purpose: it adds one solid at a time and drops the most negative one, it uses a
+secant step on the ionic strength, and whenever something does not go straight (Newton does not converge, a
+singular system, too many changes of the solids, an ionic strength beyond the activity model's range) it gives
+the point up (``ok[p] = False``). The numpy solver, with all its safeguards, then solves those points, and every
+point, from either path, passes the same verification before it is returned.
+"""
+
+from __future__ import annotations
+
+import inspect
+import os
+from concurrent.futures import ThreadPoolExecutor
+
+import numpy as np
+from numba import njit
+
+from workbench.chemistry.solver import (
+    ABSENT,
+    EARLY_DROP_ITER,
+    FAR_START_LOG,
+    INIT_ITER,
+    LN10,
+    MAX_STEP_LOG,
+    NEAR_RESIDUAL,
+    RESTORE_PH_WEIGHT,
+    TOL_IONIC,
+    TOL_IONIC_VERIFIED,
+    TOL_MASS,
+    TOL_RESIDUAL,
+    TOL_SATURATION,
+    TOL_STALL,
+    TOL_STEP,
+    VERIFY_SATURATION,
+)
+from workbench.chemistry.water_properties import DAVIES_LINEAR
+
+# the kernel's own settings (the shared tolerances above are the numpy solver's)
+JOINT_RESIDUAL = 0.1  # below this scaled residual the ionic strength joins the Newton step
+QUADRATIC_STEP = 1e-6  # a full Newton step below this (log10 units) is checked as the last one...
+QUADRATIC_RESIDUAL = 1e-4  # ...if the scaled residual before it was below this
+MIN_STEP = 1e-6  # a line search that only finds a shorter step than this gives the point up
+NEIGHBOUR_PH = 0.5  # a given start yields to the point before only within this pH distance
+MAX_ITER = 300  # Newton steps per point, all changes of the solids and the ionic strength included
+MAX_CHANGES = 40  # changes of the solids per point
+UNDERFLOW_LOG = -290.0  # species below 10**this mol/L are taken as zero
+# fast-math flags without "nnan"/"ninf": the kernel tests for NaN and infinity
+FAST = {"reassoc", "contract", "arcp", "nsz", "afn"}
+
+
+@njit(cache=True, fastmath=FAST)
+def _lu_solve(mat, rhs, size, cols):
+    """Solve mat[:size, :size] y = rhs[:size] in place (Gaussian elimination, partial pivoting); the answer is
+    left in rhs. Row updates skip the zeros of the pivot row (the systems are sparse); cols is scratch space of at
+    least size integers. Returns False for a singular or non-finite system."""
+    for k in range(size):
+        piv = k
+        big = abs(mat[k, k])
+        for r in range(k + 1, size):
+            v = abs(mat[r, k])
+            if v > big:
+                big = v
+                piv = r
+        if not (big > 0.0) or not np.isfinite(big):
+            return False
+        if piv != k:
+            for col in range(size):
+                tmp = mat[k, col]
+                mat[k, col] = mat[piv, col]
+                mat[piv, col] = tmp
+            tmp = rhs[k]
+            rhs[k] = rhs[piv]
+            rhs[piv] = tmp
+        n_cols = 0
+        for col in range(k + 1, size):
+            if mat[k, col] != 0.0:
+                cols[n_cols] = col
+                n_cols += 1
+        inv = 1.0 / mat[k, k]
+        for r in range(k + 1, size):
+            f = mat[r, k] * inv
+            if f != 0.0:
+                for q in range(n_cols):
+                    col = cols[q]
+                    mat[r, col] -= f * mat[k, col]
+                rhs[r] -= f * rhs[k]
+    for k in range(size - 1, -1, -1):
+        acc = rhs[k]
+        for col in range(k + 1, size):
+            acc -= mat[k, col] * rhs[col]
+        rhs[k] = acc / mat[k, k]
+        if not np.isfinite(rhs[k]):
+            return False
+    return True
+
+
+@njit(cache=True, fastmath=FAST)
+def _log_gamma(z, ionic, davies_a, ideal, lg):
+    if ideal:
+        lg[:] = 0.0
+        return
+    root = np.sqrt(ionic)
+    d = root / (1.0 + root) - DAVIES_LINEAR * ionic
+    for i in range(z.size):
+        lg[i] = -davies_a * z[i] * z[i] * d
+
+
+@njit(cache=True, fastmath=FAST)
+def _concentrations(log_k, a_ptr, a_col, a_val, x, lg, comp_species, logc, c):
+    """log10 and concentration of every species. A species below 1e-290 mol/L is taken as zero (exp() is many
+    times slower where its result underflows)."""
+    m = x.size
+    xl = np.empty(m)
+    for j in range(m):
+        xl[j] = x[j] + lg[comp_species[j]]
+    for i in range(logc.size):
+        acc = log_k[i] - lg[i]
+        for q in range(a_ptr[i], a_ptr[i + 1]):
+            acc += a_val[q] * xl[a_col[q]]
+        logc[i] = acc
+    for i in range(logc.size):
+        acc = logc[i]
+        c[i] = np.exp(LN10 * min(acc, 300.0)) if acc > UNDERFLOW_LOG else 0.0
+
+
+@njit(cache=True, fastmath=FAST)
+def _saturation(log_ks, b, x, lg, comp_species, s_idx, k, out):
+    m = x.size
+    for q in range(k):
+        s = s_idx[q]
+        acc = log_ks[s]
+        for j in range(m):
+            if b[s, j] != 0.0:
+                acc += b[s, j] * (x[j] + lg[comp_species[j]])
+        out[s] = acc
+
+
+@njit(cache=True, fastmath=FAST)
+def _phi(log_k, a_ptr, a_col, a_val, x, lg, comp_species, free, t, logc, c):
+    _concentrations(log_k, a_ptr, a_col, a_val, x, lg, comp_species, logc, c)
+    total = 0.0
+    for i in range(c.size):
+        total += c[i]
+    total /= LN10
+    for j in range(x.size):
+        if free[j]:
+            total -= t[j] * x[j]
+    return total
+
+
+@njit(cache=True, fastmath=FAST)
+def _ionic_of(c, z, fixed):
+    ionic = 0.0
+    charge = 0.0
+    for i in range(c.size):
+        ionic += 0.5 * z[i] * z[i] * c[i]
+        charge += z[i] * c[i]
+    if fixed:
+        ionic += 0.5 * abs(charge)
+    return ionic
+
+
+@njit(cache=True, fastmath=FAST)
+def _cold_start(log_k, a, log_a, t, present, ph_start, x, z_comp):
+    """Per-component Newton steps on the mass balances in the log domain, ideal activities, no solids (the
+    numpy solver's initial guess). Returns the starting ionic strength."""
+    n, m = a.shape
+    log_t = np.empty(m)
+    for j in range(1, m):
+        if present[j]:
+            x[j] = np.log10(t[j])
+        else:
+            x[j] = ABSENT
+        log_t[j] = x[j]
+    h = -ph_start
+    x[0] = h
+    logc = np.empty(n)
+    step = np.empty(m)
+    for _ in range(INIT_ITER):
+        for i in range(n):
+            acc = log_k[i]
+            for j in range(m):
+                acc += a[i, j] * x[j]
+            logc[i] = acc
+        biggest = 0.0
+        for j in range(1, m):
+            step[j] = 0.0
+            if not present[j]:
+                continue
+            top1 = -np.inf
+            top2 = -np.inf
+            for i in range(n):
+                if log_a[i, j - 1] > -np.inf:
+                    top1 = max(top1, logc[i] + log_a[i, j - 1])
+                    top2 = max(top2, logc[i] + 2.0 * log_a[i, j - 1])
+            if not np.isfinite(top1):
+                top1 = 0.0
+            if not np.isfinite(top2):
+                top2 = 0.0
+            sum1 = 0.0
+            sum2 = 0.0
+            for i in range(n):
+                if log_a[i, j - 1] > -np.inf:
+                    sum1 += 10.0 ** (logc[i] + log_a[i, j - 1] - top1)
+                    sum2 += 10.0 ** (logc[i] + 2.0 * log_a[i, j - 1] - top2)
+            s1 = top1 + np.log10(sum1)
+            s2 = top2 + np.log10(sum2)
+            st = (log_t[j] - s1) / 10.0 ** (s2 - s1)
+            st = min(max(st, -50.0), 50.0)
+            step[j] = st
+            biggest = max(biggest, abs(st))
+        for j in range(1, m):
+            x[j] += step[j]
+        if biggest < 0.05:
+            break
+    ionic = 10.0**h + 1e-14 / 10.0**h
+    for j in range(1, m):
+        ionic += t[j] * z_comp[j] * z_comp[j]
+    return min(max(0.5 * ionic, 1e-7), 3.0)
+
+
+@njit(cache=True, fastmath=FAST)
+def _active_list(active, act):
+    k = 0
+    for s in range(active.size):
+        if active[s]:
+            act[k] = s
+            k += 1
+    return k
+
+
+@njit(cache=True, fastmath=FAST)
+def _restore(log_ks, b, x, lg, comp_species, act, k_act, free_idx, f, si, gram, y, cols):
+    """Least-norm change of the free X that saturates every present solid exactly (the constraints are linear).
+    Moving the pH (charge-balance mode) is a last resort (small weight). Returns False if singular."""
+    if k_act == 0:
+        return True
+    _saturation(log_ks, b, x, lg, comp_species, act, k_act, si)
+    for r in range(k_act):
+        y[r] = si[act[r]]
+        for q in range(k_act):
+            acc = 0.0
+            for jj in range(f):
+                j = free_idx[jj]
+                w = RESTORE_PH_WEIGHT if j == 0 else 1.0
+                acc += b[act[r], j] * w * b[act[q], j]
+            gram[r, q] = acc
+    if not _lu_solve(gram, y, k_act, cols):
+        return False
+    for jj in range(f):
+        j = free_idx[jj]
+        w = RESTORE_PH_WEIGHT if j == 0 else 1.0
+        acc = 0.0
+        for r in range(k_act):
+            acc += b[act[r], j] * y[r]
+        x[j] -= w * acc
+    return True
+
+
+@njit(cache=True, fastmath=FAST)
+def _solve_kkt(kkt, rhs, size, f, k_act, cols, pin_col, keep_row, keep_col, red, red_rhs):
+    """Solve the KKT system kkt[:size, :size] y = rhs[:size] (unknowns: f changes of X, k_act solid amounts, then
+    du if present), answer in rhs. A present solid whose saturation row holds a single change of X (in fixed-pH
+    mode, a metal hydroxide or oxide: its metal's free concentration is fixed by the pH) is eliminated first,
+    with that X and its own amount (found from its metal's mass balance after the rest): two fewer unknowns for
+    the LU each, which is most of the system at precipitation pH. Returns False for a singular system."""
+    n_pin = 0
+    for q in range(k_act):
+        r_s = f + q
+        nz = 0
+        col = -1
+        for c in range(f):
+            if kkt[r_s, c] != 0.0:
+                nz += 1
+                col = c
+        pin_col[q] = -1
+        if nz == 1:
+            taken = False
+            for q2 in range(q):
+                if pin_col[q2] == col:
+                    taken = True
+            if not taken:
+                pin_col[q] = col
+                n_pin += 1
+    if n_pin == 0:
+        return _lu_solve(kkt, rhs, size, cols)
+    # eliminate each pinned X from every other row with its saturation row (non-zeros: that X and du only)
+    for q in range(k_act):
+        c_m = pin_col[q]
+        if c_m < 0:
+            continue
+        r_s = f + q
+        v = kkt[r_s, c_m]
+        for r in range(size):
+            if r != r_s and kkt[r, c_m] != 0.0:
+                factor = kkt[r, c_m] / v
+                kkt[r, c_m] = 0.0
+                for col in range(f + k_act, size):
+                    kkt[r, col] -= factor * kkt[r_s, col]
+                rhs[r] -= factor * rhs[r_s]
+    # the rest: without the saturation rows and the pinned X, and without each pinned metal's mass row and its
+    # solid's amount (that row is the only one holding it)
+    for r in range(size):
+        keep_row[r] = 1
+        keep_col[r] = 1
+    for q in range(k_act):
+        if pin_col[q] >= 0:
+            keep_row[f + q] = 0
+            keep_row[pin_col[q]] = 0
+            keep_col[pin_col[q]] = 0
+            keep_col[f + q] = 0
+    sz = 0
+    for r in range(size):
+        if keep_row[r]:
+            cc = 0
+            for col in range(size):
+                if keep_col[col]:
+                    red[sz, cc] = kkt[r, col]
+                    cc += 1
+            red_rhs[sz] = rhs[r]
+            sz += 1
+    if not _lu_solve(red, red_rhs, sz, cols):
+        return False
+    sol = np.zeros(size)
+    cc = 0
+    for col in range(size):
+        if keep_col[col]:
+            sol[col] = red_rhs[cc]
+            cc += 1
+    for q in range(k_act):
+        c_m = pin_col[q]
+        if c_m >= 0:
+            r_s = f + q
+            acc = rhs[r_s]
+            for col in range(f + k_act, size):
+                acc -= kkt[r_s, col] * sol[col]
+            sol[c_m] = acc / kkt[r_s, c_m]
+    for q in range(k_act):
+        c_m = pin_col[q]
+        if c_m >= 0:
+            acc = rhs[c_m]
+            for col in range(size):
+                if col != f + q:
+                    acc -= kkt[c_m, col] * sol[col]
+            piv = kkt[c_m, f + q]
+            if piv == 0.0:
+                return False
+            sol[f + q] = acc / piv
+    for r in range(size):
+        if not np.isfinite(sol[r]):
+            return False
+        rhs[r] = sol[r]
+    return True
+
+
+@njit(cache=True, fastmath=FAST)
+def _settled(
+    log_k,
+    log_ks,
+    a_ptr,
+    a_col,
+    a_val,
+    b,
+    z,
+    comp_species,
+    davies_a,
+    ideal,
+    fixed,
+    ph,
+    t,
+    possible,
+    x,
+    active,
+    act,
+    k_act,
+    n_act,
+    free_idx,
+    f,
+    ionic,
+    max_ionic,
+    lg,
+    logc,
+    c,
+    si,
+    dissolved,
+    sumabs,
+):
+    """Whether the point is solved as it stands: scaled mass residual below TOL_RESIDUAL with the given solid
+    amounts (all >= 0), present solids saturated, absent ones not supersaturated, |G| <= TOL_IONIC. Leaves the
+    pH held at the activity coefficients of the given ionic strength."""
+    n_sp = a_ptr.size - 1
+    _log_gamma(z, ionic, davies_a, ideal, lg)
+    if fixed:
+        x[0] = -ph - lg[comp_species[0]]
+    _concentrations(log_k, a_ptr, a_col, a_val, x, lg, comp_species, logc, c)
+    dissolved[:] = 0.0
+    sumabs[:] = 0.0
+    for i in range(n_sp):
+        for q in range(a_ptr[i], a_ptr[i + 1]):
+            dissolved[a_col[q]] += a_val[q] * c[i]
+            sumabs[a_col[q]] += abs(a_val[q]) * c[i]
+    for q in range(k_act):
+        if n_act[q] < 0.0:
+            return False
+        for jj in range(f):
+            j = free_idx[jj]
+            dissolved[j] += b[act[q], j] * n_act[q]
+    for jj in range(f):
+        j = free_idx[jj]
+        if abs(t[j] - dissolved[j]) > TOL_RESIDUAL * max(max(abs(t[j]), sumabs[j]), 1e-300):
+            return False
+    _saturation(log_ks, b, x, lg, comp_species, np.arange(b.shape[0]), b.shape[0], si)
+    for s in range(b.shape[0]):
+        if active[s]:
+            if abs(si[s]) > TOL_SATURATION:
+                return False
+        elif possible[s] and si[s] > TOL_SATURATION:
+            return False
+    if not ideal:
+        computed = _ionic_of(c, z, fixed)
+        if not (computed > 0.0) or computed > max_ionic:
+            return False
+        if abs(np.log10(computed) - np.log10(ionic)) > TOL_IONIC:
+            return False
+    return True
+
+
+@njit(cache=True, fastmath=FAST)
+def _final(
+    log_k,
+    log_ks,
+    a_ptr,
+    a_col,
+    a_val,
+    b,
+    z,
+    z_comp,
+    comp_species,
+    davies_a,
+    ideal,
+    fixed,
+    ph,
+    t,
+    present,
+    possible,
+    x,
+    n_out,
+    active,
+    ionic,
+    c_work,
+    lg_work,
+    conc,
+    lg,
+    si,
+    dissolved,
+):
+    """The solution at one point (concentrations and activity coefficients as the solver left them in c_work and
+    lg_work, saturation indices) and its
+    verification, the same as the numpy solver's: mass balances close to TOL_MASS, present solids saturated with
+    amounts >= 0, absent ones not supersaturated, all finite, the activity coefficients those of the solution's
+    ionic strength, and (charge-balance mode) electroneutrality. Returns (verified, ionic strength, charge)."""
+    n_sp = a_ptr.size - 1
+    m = x.size
+    for i in range(n_sp):
+        conc[i] = c_work[i]
+        lg[i] = lg_work[i]
+    dissolved[:] = 0.0
+    charge = 0.0
+    charge_scale = 0.0
+    ionic_c = 0.0
+    ok = True
+    for i in range(n_sp):
+        if not np.isfinite(conc[i]):
+            ok = False
+        for q in range(a_ptr[i], a_ptr[i + 1]):
+            dissolved[a_col[q]] += a_val[q] * conc[i]
+        charge += z[i] * conc[i]
+        charge_scale += abs(z[i]) * conc[i]
+        ionic_c += 0.5 * z[i] * z[i] * conc[i]
+    if fixed:
+        ionic_c += 0.5 * abs(charge)
+    n_so = b.shape[0]
+    for s in range(n_so):
+        acc = log_ks[s]
+        for j in range(m):
+            if b[s, j] != 0.0:
+                acc += b[s, j] * (x[j] + lg[comp_species[j]])
+        si[s] = acc
+        if active[s]:
+            if abs(acc) > VERIFY_SATURATION or n_out[s] < 0.0:
+                ok = False
+        elif possible[s] and acc > VERIFY_SATURATION:
+            ok = False
+    for j in range(1, m):
+        if present[j]:
+            tot = dissolved[j]
+            for s in range(n_so):
+                if active[s]:
+                    tot += b[s, j] * n_out[s]
+            if not (abs(tot - t[j]) <= TOL_MASS * t[j]):
+                ok = False
+    if not fixed:
+        total_charge = 0.0
+        for j in range(1, m):
+            total_charge += abs(t[j] * z_comp[j])
+        if not (abs(charge) <= TOL_MASS * max(max(charge_scale, total_charge), 1e-300)):
+            ok = False
+    if not ideal and not (abs(np.log10(max(ionic_c, 1e-300) / ionic)) <= TOL_IONIC_VERIFIED):
+        ok = False
+    return ok, ionic_c, charge
+
+
+@njit(cache=True, fastmath=FAST)
+def _solve_point(
+    log_k,
+    log_ks,
+    a_ptr,
+    a_col,
+    a_val,
+    b,
+    z,
+    comp_species,
+    weight,
+    davies_a,
+    ideal,
+    fixed,
+    ph,
+    t,
+    free,
+    possible,
+    x,
+    n_out,
+    active,
+    ionic0,
+    max_ionic,
+    warm,
+    work,
+    work2,
+    work3,
+    stats,
+):
+    """Solve one point from the given x, active set and ionic strength. Returns (ok, ionic).
+
+    Newton steps on the mass balances and the saturation of the present solids, joined by the ionic strength
+    as one more unknown, u = log10 I, with its own equation G = log10 I(computed) - u = 0 (Davies activity
+    coefficients at I). Far from the solution (scaled residual above NEAR_RESIDUAL) a backtracking line search
+    on the convex objective at fixed activity coefficients keeps each step a descent. Near it, the set of solids
+    changes (drop the most negative, else add the most supersaturated). Solved when the step and residual are
+    at rounding level, the solids stay and |G| <= TOL_IONIC."""
+    n_sp = a_ptr.size - 1
+    m = x.size
+    n_so = b.shape[0]
+    lg, logc, c, logc_t, c_t, si, dissolved, sumabs, scale, x0, dx, jac, kkt, rhs, mass_rhs = work
+    n_act, gram, y_buf, free_idx, row_of, act, all_s, cols, pin_col, keep_row, keep_col, red, red_rhs = work2
+    dlg_comp, col_sq, col_z, g_col, z_comp = work3
+    f = 0
+    for j in range(m):
+        row_of[j] = -1
+        if free[j]:
+            free_idx[f] = j
+            row_of[j] = f
+            f += 1
+    ionic = ionic0
+    # scaled residual of the last Newton step in this set of solids (a warm start takes the ionic strength into
+    # the Newton step at once)
+    last_residual = 0.0 if warm else np.inf
+    changes = 0
+    in_set = 0  # Newton steps since the set of solids last changed
+    big_t = 0.0
+    for j in range(1, m):
+        big_t = max(big_t, abs(t[j]))
+    log_big = np.log10(big_t + 1e-300)
+    k_act = _active_list(active, act)
+    restore = (
+        not warm
+    )  # a warm start goes straight into the joined Newton step, which restores saturation too
+    was_joint = False
+    h_sp = comp_species[0]
+    for it in range(MAX_ITER):
+        stats[1] += 1
+        # the ionic strength joins the Newton step once the last step was near the solution; a step at fixed
+        # activity coefficients after a joined one starts from saturated solids again
+        joint = not ideal and last_residual < JOINT_RESIDUAL
+        if was_joint and not joint and k_act > 0:
+            restore = True
+        was_joint = joint
+        _log_gamma(z, ionic, davies_a, ideal, lg)
+        if fixed:
+            x[0] = -ph - lg[h_sp]
+        if restore:
+            stats[0] += 1
+            if not _restore(log_ks, b, x, lg, comp_species, act, k_act, free_idx, f, si, gram, y_buf, cols):
+                return False, ionic
+            restore = False
+        _concentrations(log_k, a_ptr, a_col, a_val, x, lg, comp_species, logc, c)
+        if it == 0:
+            # a start far from this point's equilibrium: give it up (the caller starts cold)
+            for i in range(n_sp):
+                for q in range(a_ptr[i], a_ptr[i + 1]):
+                    if a_col[q] > 0 and t[a_col[q]] != 0.0 and logc[i] > log_big + FAR_START_LOG:
+                        return False, ionic
+        # KKT system for [dX (free components), n (present solids), du], mass rows scaled. One pass over the
+        # species gathers the mass balances, their Jacobian and, with the ionic strength as an unknown, its
+        # column and row: d log10 gamma_i / du (Davies) and d log10 c_i / du at fixed X (with the pH held in
+        # fixed-pH mode: X_H + log10 gamma_H stays)
+        size = f + k_act + (1 if joint else 0)
+        if joint:
+            root = np.sqrt(ionic)
+            d_davies = (1.0 / (2.0 * root * (1.0 + root) ** 2) - DAVIES_LINEAR) * ionic * LN10
+            for j in range(m):
+                dlg_comp[j] = 0.0 if (fixed and j == 0) else -davies_a * z_comp[j] * z_comp[j] * d_davies
+        dissolved[:] = 0.0
+        sumabs[:] = 0.0
+        jac[:, :] = 0.0
+        col_sq[:] = 0.0
+        col_z[:] = 0.0
+        g_col[:] = 0.0
+        ionic_sq = 0.0
+        charge = 0.0
+        du_sq = 0.0
+        du_z = 0.0
+        for i in range(n_sp):
+            ci = c[i]
+            if ci == 0.0:
+                continue
+            gi = 0.0
+            if joint:
+                gi = davies_a * z[i] * z[i] * d_davies
+                for q in range(a_ptr[i], a_ptr[i + 1]):
+                    gi += a_val[q] * dlg_comp[a_col[q]]
+                zi = z[i]
+                ionic_sq += 0.5 * zi * zi * ci
+                charge += zi * ci
+                du_sq += 0.5 * zi * zi * ci * gi
+                du_z += zi * ci * gi
+            for q in range(a_ptr[i], a_ptr[i + 1]):
+                j = a_col[q]
+                av = a_val[q] * ci
+                dissolved[j] += av
+                sumabs[j] += abs(av)
+                lc = LN10 * av
+                for q2 in range(a_ptr[i], a_ptr[i + 1]):
+                    jac[j, a_col[q2]] += lc * a_val[q2]
+                if joint:
+                    g_col[j] += av * gi
+                    col_sq[j] += 0.5 * z[i] * z[i] * av
+                    col_z[j] += z[i] * av
+        for r in range(size):
+            rhs[r] = 0.0
+            for q in range(size):
+                kkt[r, q] = 0.0
+        for r in range(f):
+            j = free_idx[r]
+            scale[j] = 1.0 / max(max(abs(t[j]), sumabs[j]), 1e-300)
+            for q in range(f):
+                kkt[r, q] = jac[j, free_idx[q]] * scale[j]
+            for q in range(k_act):
+                kkt[r, f + q] = b[act[q], j] * scale[j]
+                kkt[f + q, r] = b[act[q], j]
+            rhs[r] = (t[j] - dissolved[j]) * scale[j]
+            mass_rhs[r] = rhs[r]
+        if k_act > 0:
+            _saturation(log_ks, b, x, lg, comp_species, act, k_act, si)
+            for q in range(k_act):
+                rhs[f + q] = -si[act[q]]
+        g_res = np.inf
+        if ideal:
+            g_res = 0.0
+        elif joint:
+            # G = log10 I(computed) - u; in fixed-pH mode I counts the counter-ion of the acid or base that
+            # holds the pH (|charge| / 2)
+            sign = 0.0
+            computed = ionic_sq
+            if fixed:
+                computed += 0.5 * abs(charge)
+                sign = 0.5 if charge > 0 else -0.5
+            if not (computed > 0.0) or computed > max_ionic:
+                return False, ionic
+            g_res = np.log10(computed) - np.log10(ionic)
+            col = f + k_act
+            for r in range(f):
+                j = free_idx[r]
+                kkt[r, col] = LN10 * g_col[j] * scale[j]
+                kkt[col, r] = (col_sq[j] + sign * col_z[j]) / computed
+            for q in range(k_act):
+                acc = 0.0
+                for j in range(m):
+                    if b[act[q], j] != 0.0:
+                        acc += b[act[q], j] * dlg_comp[j]
+                kkt[f + q, col] = acc
+            kkt[col, col] = (du_sq + sign * du_z) / computed - 1.0
+            rhs[col] = -g_res
+        if not _solve_kkt(kkt, rhs, size, f, k_act, cols, pin_col, keep_row, keep_col, red, red_rhs):
+            return False, ionic
+        du = rhs[f + k_act] if joint else 0.0
+        residual = 0.0
+        for r in range(f):
+            acc = mass_rhs[r]
+            j = free_idx[r]
+            for q in range(k_act):
+                acc -= b[act[q], j] * scale[j] * rhs[f + q]
+            residual = max(residual, abs(acc))
+        step = abs(du)
+        for r in range(f):
+            step = max(step, abs(rhs[r]))
+        for q in range(k_act):
+            n_act[q] = rhs[f + q]
+        converged = (residual < TOL_RESIDUAL and step < TOL_STEP) or step < TOL_STALL
+        last_residual = residual
+        near = residual < NEAR_RESIDUAL or converged
+        in_set += 1
+        # solids: near the solution (or after a few steps in this set) drop the most negative one (relative to
+        # its components' totals); near, add the most supersaturated
+        if near or in_set > EARLY_DROP_ITER:
+            worst = -1
+            worst_v = 0.0
+            for q in range(k_act):
+                if n_act[q] < 0.0:
+                    ref = 1e-300
+                    for j in range(1, m):
+                        if b[act[q], j] != 0.0:
+                            ref += abs(t[j])
+                    if n_act[q] / ref < worst_v:
+                        worst_v = n_act[q] / ref
+                        worst = act[q]
+            if worst >= 0 and (converged or in_set > EARLY_DROP_ITER or worst_v < -1e-6):
+                active[worst] = False
+                changes += 1
+                if changes > MAX_CHANGES:
+                    return False, ionic
+                k_act = _active_list(active, act)
+                in_set = 0
+                restore = True
+                last_residual = np.inf
+                continue
+        if near:
+            _saturation(log_ks, b, x, lg, comp_species, all_s, n_so, si)
+            best = -1
+            best_v = -np.inf
+            threshold = TOL_SATURATION if converged else 1e-6
+            for s in range(n_so):
+                if possible[s] and not active[s] and si[s] > threshold:
+                    v = si[s] / weight[s]
+                    if v > best_v:
+                        best_v = v
+                        best = s
+            if best >= 0:
+                active[best] = True
+                changes += 1
+                if changes > MAX_CHANGES:
+                    return False, ionic
+                k_act = _active_list(active, act)
+                in_set = 0
+                restore = True
+                last_residual = np.inf
+                continue
+        if converged and abs(g_res) <= TOL_IONIC:
+            break
+        # Newton step, limited: no species above 100x the largest total, none already there rising by more
+        # than MAX_STEP_LOG, no free concentration moving by more than 10 log units
+        dx[:] = 0.0
+        for r in range(f):
+            dx[free_idx[r]] = rhs[r]
+        ceiling = log_big + 2.0
+        lam = 1.0
+        for i in range(n_sp):
+            rise = 0.0
+            for q in range(a_ptr[i], a_ptr[i + 1]):
+                rise += a_val[q] * dx[a_col[q]]
+            if rise > 0.0:
+                room = ceiling - logc[i] if logc[i] < ceiling else MAX_STEP_LOG
+                lam = min(lam, room / rise)
+        lam = min(lam, 10.0 / max(step, 1e-300))
+        x0[:] = x
+        phi0 = 0.0
+        slope = 0.0
+        for i in range(n_sp):
+            phi0 += c[i]
+        phi0 /= LN10
+        for jj in range(f):
+            j = free_idx[jj]
+            phi0 -= t[j] * x[j]
+            slope += (dissolved[j] - t[j]) * dx[j]
+        if not joint and abs(slope) > 1e-10 * max(abs(phi0), 1e-300) and residual > NEAR_RESIDUAL:
+            # far: line search on the objective at the present activity coefficients
+            accepted = False
+            for _ls in range(40):
+                stats[2] += 1
+                for j in range(m):
+                    x[j] = x0[j] + lam * dx[j]
+                phi = _phi(log_k, a_ptr, a_col, a_val, x, lg, comp_species, free, t, logc_t, c_t)
+                if np.isfinite(phi) and phi <= phi0 + 1e-4 * lam * min(slope, 0.0) + 1e-14 * abs(phi0):
+                    accepted = True
+                    break
+                lam *= 0.5
+            if not accepted or lam < MIN_STEP:
+                return False, ionic
+        else:
+            for j in range(m):
+                x[j] = x0[j] + lam * dx[j]
+            du *= lam
+        if du != 0.0:
+            ionic = 10.0 ** (np.log10(ionic) + min(max(du, -1.0), 1.0))
+        # a full Newton step this small, near the solution, leaves an error of order its square: check the new
+        # point directly (mass balances with the step's solid amounts, saturation, ionic strength) instead of
+        # taking one more Newton step to find it converged
+        if lam == 1.0 and step < QUADRATIC_STEP and residual < QUADRATIC_RESIDUAL and (joint or ideal):
+            stats[2] += 1
+            if _settled(
+                log_k,
+                log_ks,
+                a_ptr,
+                a_col,
+                a_val,
+                b,
+                z,
+                comp_species,
+                davies_a,
+                ideal,
+                fixed,
+                ph,
+                t,
+                possible,
+                x,
+                active,
+                act,
+                k_act,
+                n_act,
+                free_idx,
+                f,
+                ionic,
+                max_ionic,
+                lg,
+                logc,
+                c,
+                si,
+                dissolved,
+                sumabs,
+            ):
+                break
+    else:
+        return False, ionic
+    for s in range(n_so):
+        n_out[s] = 0.0
+    for q in range(k_act):
+        n_out[act[q]] = n_act[q]
+    return True, ionic
+
+
+@njit(cache=True, nogil=True, fastmath=FAST)
+def solve_points(
+    log_k,
+    log_ks,
+    a,
+    a_ptr,
+    a_col,
+    a_val,
+    log_a,
+    b,
+    z,
+    comp_species,
+    weight,
+    davies_a,
+    ideal,
+    fixed,
+    ph,
+    ph_guess,
+    t,
+    free,
+    present,
+    possible,
+    x,
+    n_out,
+    active,
+    ionic,
+    use_start,
+    x_start,
+    x_start_active,
+    ionic_start,
+    chunks,
+    max_ionic,
+    ok,
+    stats,
+    conc,
+    lg_out,
+    si_out,
+    dissolved_out,
+    ionic_c,
+    charge,
+):
+    """Solve every point; chunks[c]:chunks[c+1] are solved in order, each point from the one before it (or, with
+    use_start, from its own given state). Fills x, n_out, active, ionic and ok (False: left to the numpy solver)."""
+    n_sp, m = a.shape
+    n_so = b.shape[0]
+    z_comp = np.empty(m)
+    for j in range(m):
+        z_comp[j] = z[comp_species[j]]
+    per_k = log_k.shape[0] > 1
+    per_ks = log_ks.shape[0] > 1
+    for ch in range(chunks.size - 1):
+        work = (
+            np.empty(n_sp),
+            np.empty(n_sp),
+            np.empty(n_sp),
+            np.empty(n_sp),
+            np.empty(n_sp),
+            np.empty(n_so),
+            np.empty(m),
+            np.empty(m),
+            np.empty(m),
+            np.empty(m),
+            np.empty(m),
+            np.empty((m, m)),
+            np.empty((m + n_so + 1, m + n_so + 1)),
+            np.empty(m + n_so + 1),
+            np.empty(m),
+        )
+        work2 = (
+            np.zeros(n_so),
+            np.empty((n_so, n_so)),
+            np.empty(n_so),
+            np.empty(m, np.int64),
+            np.empty(m, np.int64),
+            np.empty(n_so, np.int64),
+            np.arange(n_so),
+            np.empty(m + n_so + 1, np.int64),
+            np.empty(n_so, np.int64),
+            np.empty(m + n_so + 1, np.int64),
+            np.empty(m + n_so + 1, np.int64),
+            np.empty((m + n_so + 1, m + n_so + 1)),
+            np.empty(m + n_so + 1),
+        )
+        work3 = (np.empty(m), np.empty(m), np.empty(m), np.empty(m), z_comp)
+        prev = -1
+        prev2 = -1
+        for p in range(chunks[ch], chunks[ch + 1]):
+            lk = log_k[p] if per_k else log_k[0]
+            lks = log_ks[p] if per_ks else log_ks[0]
+            warm = use_start
+            if prev >= 0:
+                same = True
+                for j in range(m):
+                    if present[p, j] != present[prev, j]:
+                        same = False
+                for s in range(n_so):
+                    if possible[p, s] != possible[prev, s]:
+                        same = False
+                offset = use_start and same
+                if offset:
+                    for s in range(n_so):
+                        if (
+                            active[p, s] != x_start_active[prev, s]
+                            or active[prev, s] != x_start_active[prev, s]
+                        ):
+                            offset = False
+                if offset:
+                    # from the given start, moved as the point before moved from its own start (e.g. a Monte
+                    # Carlo sample along pH: the shift of its constants acts alike at neighbouring points)
+                    # (extrapolated linearly from the two points before where they share their solids)
+                    two = prev2 >= 0
+                    if two:
+                        for s in range(n_so):
+                            if (
+                                active[prev2, s] != active[prev, s]
+                                or x_start_active[prev2, s] != active[prev, s]
+                            ):
+                                two = False
+                    for j in range(m):
+                        if free[p, j]:
+                            shift = x[prev, j] - x_start[prev, j]
+                            if two:
+                                shift += shift - (x[prev2, j] - x_start[prev2, j])
+                            x[p, j] += shift
+                    if not ideal:
+                        ratio = ionic[prev] / ionic_start[prev]
+                        if two:
+                            ratio *= ratio / (ionic[prev2] / ionic_start[prev2])
+                        ionic[p] *= ratio
+                elif same and (not use_start or (fixed and abs(ph[p] - ph[prev]) <= NEIGHBOUR_PH)):
+                    # continuation: from the point before, extrapolated along the curve (pH, or the point's
+                    # place in charge-balance mode) from the two points before where they share their solids
+                    for j in range(m):
+                        if free[p, j]:
+                            x[p, j] = x[prev, j]
+                    for s in range(n_so):
+                        active[p, s] = active[prev, s]
+                    ionic[p] = ionic[prev]
+                    warm = True
+                    if prev2 >= 0:
+                        for s in range(n_so):
+                            if active[prev2, s] != active[prev, s]:
+                                same = False
+                        s_p = ph[p] if fixed else float(p)
+                        s_1 = ph[prev] if fixed else float(prev)
+                        s_2 = ph[prev2] if fixed else float(prev2)
+                        ratio = (s_p - s_1) / (s_1 - s_2) if s_1 != s_2 else 0.0
+                        if same and ratio > 0.0 and ratio <= 2.0:
+                            for j in range(m):
+                                if free[p, j]:
+                                    x[p, j] = x[prev, j] + ratio * (x[prev, j] - x[prev2, j])
+                            ionic[p] = ionic[prev] * (ionic[prev] / ionic[prev2]) ** ratio
+            good = False
+            if warm:
+                good, i_out = _solve_point(
+                    lk,
+                    lks,
+                    a_ptr,
+                    a_col,
+                    a_val,
+                    b,
+                    z,
+                    comp_species,
+                    weight,
+                    davies_a,
+                    ideal,
+                    fixed,
+                    ph[p],
+                    t[p],
+                    free[p],
+                    possible[p],
+                    x[p],
+                    n_out[p],
+                    active[p],
+                    ionic[p],
+                    max_ionic,
+                    True,
+                    work,
+                    work2,
+                    work3,
+                    stats[p],
+                )
+                if good:
+                    ionic[p] = i_out
+            if not good:
+                start_ph = ph[p] if fixed else ph_guess[p]
+                i0 = _cold_start(lk, a, log_a, t[p], present[p], start_ph, x[p], z_comp)
+                for s in range(n_so):
+                    active[p, s] = False
+                good, i_out = _solve_point(
+                    lk,
+                    lks,
+                    a_ptr,
+                    a_col,
+                    a_val,
+                    b,
+                    z,
+                    comp_species,
+                    weight,
+                    davies_a,
+                    ideal,
+                    fixed,
+                    ph[p],
+                    t[p],
+                    free[p],
+                    possible[p],
+                    x[p],
+                    n_out[p],
+                    active[p],
+                    i0,
+                    max_ionic,
+                    False,
+                    work,
+                    work2,
+                    work3,
+                    stats[p],
+                )
+                ionic[p] = i_out
+            if good:
+                good, ionic_c[p], charge[p] = _final(
+                    lk,
+                    lks,
+                    a_ptr,
+                    a_col,
+                    a_val,
+                    b,
+                    z,
+                    z_comp,
+                    comp_species,
+                    davies_a,
+                    ideal,
+                    fixed,
+                    ph[p],
+                    t[p],
+                    present[p],
+                    possible[p],
+                    x[p],
+                    n_out[p],
+                    active[p],
+                    ionic[p],
+                    work[2],
+                    work[0],
+                    conc[p],
+                    lg_out[p],
+                    si_out[p],
+                    dissolved_out[p],
+                )
+            ok[p] = good
+            prev2 = prev if good else -1
+            prev = p if good else -1
+
+
+CHUNKS_ARGUMENT = list(inspect.signature(getattr(solve_points, "py_func", solve_points)).parameters).index(
+    "chunks"
+)
+
+
+def threads() -> int:
+    """Threads the kernel may use: the cores this process may run on."""
+    return max(1, len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (os.cpu_count() or 1))
+
+
+_POOL: list = []
+
+
+def _reset_pool() -> None:
+    _POOL.clear()  # a forked child has none of its parent's threads: it makes its own pool when needed
+
+
+os.register_at_fork(after_in_child=_reset_pool)
+
+
+def run_chunks(args: tuple, chunks: np.ndarray) -> None:
+    """Run solve_points(*args[:chunk position], chunks, *rest) over the chunks, one chunk per thread (the
+    compiled kernel releases the GIL); a single chunk runs in the calling thread."""
+    where = CHUNKS_ARGUMENT
+    if chunks.size <= 2:
+        solve_points(*args[:where], chunks, *args[where:])
+        return
+    if not _POOL:
+        _POOL.append(ThreadPoolExecutor(max_workers=threads(), thread_name_prefix="equilibrium"))
+    jobs = [
+        _POOL[0].submit(solve_points, *args[:where], chunks[i : i + 2].copy(), *args[where:])
+        for i in range(chunks.size - 1)
+    ]
+    for job in jobs:
+        job.result()
