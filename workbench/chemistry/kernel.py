@@ -114,12 +114,10 @@ def _log_gamma(z, ionic, davies_a, ideal, lg):
 
 
 @njit(cache=True, fastmath=FAST)
-def _concentrations(log_k, a_ptr, a_col, a_val, x, lg, comp_species, logc, c):
+def _concentrations(log_k, a_ptr, a_col, a_val, x, lg, comp_species, logc, c, xl):
     """log10 and concentration of every species. A species below 1e-290 mol/L is taken as zero (exp() is many
     times slower where its result underflows)."""
-    m = x.size
-    xl = np.empty(m)
-    for j in range(m):
+    for j in range(x.size):
         xl[j] = x[j] + lg[comp_species[j]]
     for i in range(logc.size):
         acc = log_k[i] - lg[i]
@@ -144,8 +142,8 @@ def _saturation(log_ks, b, x, lg, comp_species, s_idx, k, out):
 
 
 @njit(cache=True, fastmath=FAST)
-def _phi(log_k, a_ptr, a_col, a_val, x, lg, comp_species, free, t, logc, c):
-    _concentrations(log_k, a_ptr, a_col, a_val, x, lg, comp_species, logc, c)
+def _phi(log_k, a_ptr, a_col, a_val, x, lg, comp_species, free, t, logc, c, xl):
+    _concentrations(log_k, a_ptr, a_col, a_val, x, lg, comp_species, logc, c, xl)
     total = 0.0
     for i in range(c.size):
         total += c[i]
@@ -266,7 +264,7 @@ def _restore(log_ks, b, x, lg, comp_species, act, k_act, free_idx, f, si, gram, 
 
 
 @njit(cache=True, fastmath=FAST)
-def _solve_kkt(kkt, rhs, size, f, k_act, cols, pin_col, keep_row, keep_col, red, red_rhs):
+def _solve_kkt(kkt, rhs, size, f, k_act, cols, pin_col, keep_row, keep_col, red, red_rhs, sol):
     """Solve the KKT system kkt[:size, :size] y = rhs[:size] (unknowns: f changes of X, k_act solid amounts, then
     du if present), answer in rhs. A present solid whose saturation row holds a single change of X (in fixed-pH
     mode, a metal hydroxide or oxide: its metal's free concentration is fixed by the pH) is eliminated first,
@@ -329,7 +327,8 @@ def _solve_kkt(kkt, rhs, size, f, k_act, cols, pin_col, keep_row, keep_col, red,
             sz += 1
     if not _lu_solve(red, red_rhs, sz, cols):
         return False
-    sol = np.zeros(size)
+    for r in range(size):
+        sol[r] = 0.0
     cc = 0
     for col in range(size):
         if keep_col[col]:
@@ -392,6 +391,8 @@ def _settled(
     si,
     dissolved,
     sumabs,
+    xl,
+    all_s,
 ):
     """Whether the point is solved as it stands: scaled mass residual below TOL_RESIDUAL with the given solid
     amounts (all >= 0), present solids saturated, absent ones not supersaturated, |G| <= TOL_IONIC. Leaves the
@@ -400,7 +401,7 @@ def _settled(
     _log_gamma(z, ionic, davies_a, ideal, lg)
     if fixed:
         x[0] = -ph - lg[comp_species[0]]
-    _concentrations(log_k, a_ptr, a_col, a_val, x, lg, comp_species, logc, c)
+    _concentrations(log_k, a_ptr, a_col, a_val, x, lg, comp_species, logc, c, xl)
     dissolved[:] = 0.0
     sumabs[:] = 0.0
     for i in range(n_sp):
@@ -417,7 +418,7 @@ def _settled(
         j = free_idx[jj]
         if abs(t[j] - dissolved[j]) > TOL_RESIDUAL * max(max(abs(t[j]), sumabs[j]), 1e-300):
             return False
-    _saturation(log_ks, b, x, lg, comp_species, np.arange(b.shape[0]), b.shape[0], si)
+    _saturation(log_ks, b, x, lg, comp_species, all_s, b.shape[0], si)
     for s in range(b.shape[0]):
         if active[s]:
             if abs(si[s]) > TOL_SATURATION:
@@ -560,7 +561,7 @@ def _solve_point(
     n_so = b.shape[0]
     lg, logc, c, logc_t, c_t, si, dissolved, sumabs, scale, x0, dx, jac, kkt, rhs, mass_rhs = work
     n_act, gram, y_buf, free_idx, row_of, act, all_s, cols, pin_col, keep_row, keep_col, red, red_rhs = work2
-    dlg_comp, col_sq, col_z, g_col, z_comp = work3
+    dlg_comp, col_sq, col_z, g_col, z_comp, xl, sol = work3
     f = 0
     for j in range(m):
         row_of[j] = -1
@@ -600,7 +601,7 @@ def _solve_point(
             if not _restore(log_ks, b, x, lg, comp_species, act, k_act, free_idx, f, si, gram, y_buf, cols):
                 return False, ionic
             restore = False
-        _concentrations(log_k, a_ptr, a_col, a_val, x, lg, comp_species, logc, c)
+        _concentrations(log_k, a_ptr, a_col, a_val, x, lg, comp_species, logc, c, xl)
         if it == 0:
             # a start far from this point's equilibrium: give it up (the caller starts cold)
             for i in range(n_sp):
@@ -698,7 +699,7 @@ def _solve_point(
                 kkt[f + q, col] = acc
             kkt[col, col] = (du_sq + sign * du_z) / computed - 1.0
             rhs[col] = -g_res
-        if not _solve_kkt(kkt, rhs, size, f, k_act, cols, pin_col, keep_row, keep_col, red, red_rhs):
+        if not _solve_kkt(kkt, rhs, size, f, k_act, cols, pin_col, keep_row, keep_col, red, red_rhs, sol):
             return False, ionic
         du = rhs[f + k_act] if joint else 0.0
         residual = 0.0
@@ -796,7 +797,7 @@ def _solve_point(
                 stats[2] += 1
                 for j in range(m):
                     x[j] = x0[j] + lam * dx[j]
-                phi = _phi(log_k, a_ptr, a_col, a_val, x, lg, comp_species, free, t, logc_t, c_t)
+                phi = _phi(log_k, a_ptr, a_col, a_val, x, lg, comp_species, free, t, logc_t, c_t, xl)
                 if np.isfinite(phi) and phi <= phi0 + 1e-4 * lam * min(slope, 0.0) + 1e-14 * abs(phi0):
                     accepted = True
                     break
@@ -844,6 +845,8 @@ def _solve_point(
                 si,
                 dissolved,
                 sumabs,
+                xl,
+                all_s,
             ):
                 break
     else:
@@ -938,7 +941,15 @@ def solve_points(
             np.empty((m + n_so + 1, m + n_so + 1)),
             np.empty(m + n_so + 1),
         )
-        work3 = (np.empty(m), np.empty(m), np.empty(m), np.empty(m), z_comp)
+        work3 = (
+            np.empty(m),
+            np.empty(m),
+            np.empty(m),
+            np.empty(m),
+            z_comp,
+            np.empty(m),
+            np.empty(m + n_so + 1),
+        )
         prev = -1
         prev2 = -1
         for p in range(chunks[ch], chunks[ch + 1]):

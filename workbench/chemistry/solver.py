@@ -319,6 +319,35 @@ def _limit_blas() -> None:
         _BLAS_LIMITED = True
 
 
+_KERNEL_TABLEAU: dict = {}
+
+
+def _kernel_tableau(tab: Tableau, log_a: np.ndarray, weight: np.ndarray) -> tuple:
+    """The kernel's arrays for one tableau (its stoichiometry also as compressed rows), kept for the last few
+    tableaux used."""
+    key = id(tab)
+    hit = _KERNEL_TABLEAU.get(key)
+    if hit is not None and hit[0] is tab:
+        return hit[1]
+    nz_rows, nz_cols = np.nonzero(tab.a)
+    arrays = (
+        np.ascontiguousarray(tab.a, dtype=float),
+        np.searchsorted(nz_rows, np.arange(len(tab.species) + 1)).astype(np.int64),
+        nz_cols.astype(np.int64),
+        np.ascontiguousarray(tab.a[nz_rows, nz_cols], dtype=float),
+        np.ascontiguousarray(log_a),
+        np.ascontiguousarray(tab.b, dtype=float),
+        np.ascontiguousarray(tab.z, dtype=float),
+        _component_rows(tab).astype(np.int64),
+        np.ascontiguousarray(weight, dtype=float),
+        float(tab.davies_a),
+    )
+    if len(_KERNEL_TABLEAU) >= 32:
+        _KERNEL_TABLEAU.pop(next(iter(_KERNEL_TABLEAU)))
+    _KERNEL_TABLEAU[key] = (tab, arrays)
+    return arrays
+
+
 class _State:
     """Working arrays of one solve (internal)."""
 
@@ -378,8 +407,6 @@ class _State:
 
         tab = self.tab
         n_pts = self.x.shape[0]
-        nz_rows, nz_cols = np.nonzero(tab.a)
-        a_ptr = np.searchsorted(nz_rows, np.arange(len(tab.species) + 1)).astype(np.int64)
         if not use_start:
             self.x[:, 1:] = np.where(self.present[:, 1:], 0.0, ABSENT)
         # threads pay only for enough work (points x species); with a start, chunks cost nothing extra and
@@ -400,16 +427,7 @@ class _State:
         args = (
             np.ascontiguousarray(self.log_k if self.log_k.strides[0] else self.log_k[:1]),
             np.ascontiguousarray(self.log_ks if self.log_ks.strides[0] else self.log_ks[:1]),
-            np.ascontiguousarray(tab.a, dtype=float),
-            a_ptr,
-            nz_cols.astype(np.int64),
-            np.ascontiguousarray(tab.a[nz_rows, nz_cols], dtype=float),
-            np.ascontiguousarray(self.log_a),
-            np.ascontiguousarray(tab.b, dtype=float),
-            np.ascontiguousarray(tab.z, dtype=float),
-            self.comp_species.astype(np.int64),
-            np.ascontiguousarray(self.weight, dtype=float),
-            float(tab.davies_a),
+            *_kernel_tableau(tab, self.log_a, self.weight),
             self.ideal,
             self.ph is not None,
             np.zeros(n_pts) if self.ph is None else np.ascontiguousarray(self.ph),
@@ -423,9 +441,9 @@ class _State:
             self.active,
             self.ionic,
             use_start,
-            self.x.copy(),
-            self.active.copy(),
-            self.ionic.copy(),
+            self.x.copy() if use_start else self.x,
+            self.active.copy() if use_start else self.active,
+            self.ionic.copy() if use_start else self.ionic,
             ionic_ceiling,
             ok,
             self.stats,
