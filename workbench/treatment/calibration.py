@@ -21,7 +21,6 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 import pandas as pd
-from scipy import optimize, stats
 
 from workbench.errors import InputError
 from workbench.treatment.jar_tests import OUTPUT_COLUMNS
@@ -344,6 +343,8 @@ def fit_solubility_shift(
         notes = _no_information_note(rows, informative, metal)
         return _censored_only(model, rows, informative, cens, dl, blank, notes, n_used, n_used)
     x0 = float(np.clip(np.median(r0[start]), -4.5, 4.5))
+    from scipy import optimize  # imported here: scipy.optimize and scipy.stats take half the import time
+
     sol = optimize.least_squares(
         fun,
         [x0],
@@ -373,6 +374,8 @@ def fit_solubility_shift(
     if n >= 2:
         scale = math.sqrt(float(np.sum(w * r**2 * active)) / (n - 1))
         se = scale / math.sqrt(float(np.sum(w * jac**2)))
+        from scipy import stats
+
         half = float(stats.t.ppf(0.5 + confidence / 2.0, n - 1)) * se
         low, high = delta - half, delta + half
     else:
@@ -439,6 +442,8 @@ def _censored_only(model, rows, informative, cens, dl, blank, notes, n_used, n_c
         notes.append("every result is below detection, under even the least soluble prediction allowed")
     else:
         lo, hi = sorted((inside, edge))
+        from scipy import optimize
+
         bound = float(optimize.brentq(excess, lo, hi, xtol=0.005))
         notes.append(
             f"every informative result is below detection: the shift is at most {bound:+.2f} (not determined)"
