@@ -29,7 +29,7 @@ positive amounts, and nothing is NaN; otherwise :class:`~workbench.errors.Conver
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
@@ -104,9 +104,14 @@ class Equilibrium:
     ph: np.ndarray
     strong_base: np.ndarray
     totals: np.ndarray
+    dissolved_totals: np.ndarray | None = field(default=None, repr=False, compare=False)
 
     def dissolved(self) -> np.ndarray:
-        """Total dissolved amount of each component (H+ column meaningless). [mol/L]"""
+        """Total dissolved amount of each component (H+ column meaningless). [mol/L]
+
+        The kernel sums it as it verifies the mass balances (``dissolved_totals``); otherwise it is computed."""
+        if self.dissolved_totals is not None and self.dissolved_totals.shape[0] == self.conc.shape[0]:
+            return self.dissolved_totals
         return self.conc @ self.tableau.a
 
 
@@ -187,6 +192,7 @@ def solve(
         ).finish()
         for name in _ROW_FIELDS:
             getattr(eq, name)[rest] = getattr(sub, name)
+        eq.dissolved_totals[rest] = sub.dissolved()
     return eq
 
 
@@ -391,7 +397,8 @@ class _State:
         self.waiting = np.zeros((n_pts, s), int)  # passes a taken-back solid waits before it may enter again
         self.comp_species = _component_rows(tab)
         # a solid can only form at a point where all its components are present
-        self.possible = ~((np.abs(tab.b[None, :, 1:]) > 0) & ~self.present[:, None, 1:]).any(axis=2)
+        needs = (np.abs(tab.b[:, 1:]) > 0).astype(float)  # (s, m-1): the components each solid contains
+        self.possible = ((~self.present[:, 1:]).astype(float) @ needs.T) == 0.0
         self.weight = np.maximum(1.0, np.abs(tab.b[:, 1:]).sum(axis=1))
         self.outer = LN10 * (tab.a[:, :, None] * tab.a[:, None, :]).reshape(len(tab.species), m * m)
         a_pos = np.clip(tab.a[:, 1:], 0.0, None)
@@ -467,6 +474,7 @@ class _State:
             ph=ph,
             strong_base=-charge if self.ph is not None else np.zeros(n_pts),
             totals=self.t,
+            dissolved_totals=dissolved,
         )
         return eq, np.flatnonzero(~ok)
 
