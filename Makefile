@@ -1,6 +1,7 @@
 # Developer entry points. `make test` is what CI runs (through .ci/run).
-#   make install   create .venv and install the package (editable) with the test extra; redone only when
-#                  pyproject.toml changes (stamp file .venv/.installed)
+#   make install   create .venv and install the package (editable) with the test extra, and compile the
+#                  solver's kernel into its cache (about 20 s, once); redone only when pyproject.toml changes
+#                  (stamp file .venv/.installed)
 #   make test      lint (ruff) and the test suite
 #   make run       start JupyterLab on the notebooks (127.0.0.1, random token): make run PORT=8890
 #   make bench     run the benchmark scripts in tests/benchmarks/ (printed ratios, not timed tests)
@@ -29,6 +30,7 @@ $(STAMP): pyproject.toml
 	test -x $(PY) || $(RUN) $(PYTHON3) -m venv $(VENV)
 	test -x $(UV) || $(RUN) $(PY) -m pip install --quiet uv
 	$(RUN) $(UV) pip install --python $(PY) --config-settings editable_mode=compat -e '.[test]'
+	$(RUN) $(PY) -m workbench.chemistry.kernel
 	touch $@
 
 test: install

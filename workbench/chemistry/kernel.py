@@ -1153,3 +1153,21 @@ def run_chunks(args: tuple, chunks: np.ndarray) -> None:
     ]
     for job in jobs:
         job.result()
+
+
+def _compile() -> None:
+    """Compile the kernel into numba's cache (``python -m workbench.chemistry.kernel``; `make install` runs it):
+    one small solve in each mode, so the first solve in a notebook does not wait for the compiler."""
+    import time
+
+    import workbench as wb
+
+    t0 = time.perf_counter()
+    water = wb.Water(metals_mg_l={"Zn": 5.0}, ph=6.5, alkalinity_mg_l_caco3=50.0)
+    wb.residual_curve(water, [6.0, 9.0, 12.0])
+    wb.dose_curve(water, "lime", [0.0, 50.0])
+    print(f"solver kernel compiled and cached in {time.perf_counter() - t0:.1f} s")
+
+
+if __name__ == "__main__":
+    _compile()
