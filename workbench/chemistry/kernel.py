@@ -56,7 +56,7 @@ UNDERFLOW_LOG = -290.0  # species below 10**this mol/L are taken as zero
 FAST = {"reassoc", "contract", "arcp", "nsz", "afn"}
 
 
-@njit(cache=True, fastmath=FAST)
+@njit(cache=True, fastmath=FAST, _nrt=False)
 def _lu_solve(mat, rhs, size, cols):
     """Solve mat[:size, :size] y = rhs[:size] in place (Gaussian elimination, partial pivoting); the answer is
     left in rhs. Row updates skip the zeros of the pivot row (the systems are sparse); cols is scratch space of at
@@ -102,10 +102,10 @@ def _lu_solve(mat, rhs, size, cols):
     return True
 
 
-@njit(cache=True, fastmath=FAST)
+@njit(cache=True, fastmath=FAST, _nrt=False)
 def _log_gamma(z, ionic, davies_a, ideal, lg):
     if ideal:
-        lg[:] = 0.0
+        lg.fill(0.0)
         return
     root = np.sqrt(ionic)
     d = root / (1.0 + root) - DAVIES_LINEAR * ionic
@@ -113,7 +113,7 @@ def _log_gamma(z, ionic, davies_a, ideal, lg):
         lg[i] = -davies_a * z[i] * z[i] * d
 
 
-@njit(cache=True, fastmath=FAST)
+@njit(cache=True, fastmath=FAST, _nrt=False)
 def _concentrations(log_k, a_ptr, a_col, a_val, x, lg, comp_species, logc, c, xl):
     """log10 and concentration of every species. A species below 1e-290 mol/L is taken as zero (exp() is many
     times slower where its result underflows)."""
@@ -129,7 +129,7 @@ def _concentrations(log_k, a_ptr, a_col, a_val, x, lg, comp_species, logc, c, xl
         c[i] = np.exp(LN10 * min(acc, 300.0)) if acc > UNDERFLOW_LOG else 0.0
 
 
-@njit(cache=True, fastmath=FAST)
+@njit(cache=True, fastmath=FAST, _nrt=False)
 def _saturation(log_ks, b, x, lg, comp_species, s_idx, k, out):
     m = x.size
     for q in range(k):
@@ -141,7 +141,7 @@ def _saturation(log_ks, b, x, lg, comp_species, s_idx, k, out):
         out[s] = acc
 
 
-@njit(cache=True, fastmath=FAST)
+@njit(cache=True, fastmath=FAST, _nrt=False)
 def _phi(log_k, a_ptr, a_col, a_val, x, lg, comp_species, free, t, logc, c, xl):
     _concentrations(log_k, a_ptr, a_col, a_val, x, lg, comp_species, logc, c, xl)
     total = 0.0
@@ -154,7 +154,7 @@ def _phi(log_k, a_ptr, a_col, a_val, x, lg, comp_species, free, t, logc, c, xl):
     return total
 
 
-@njit(cache=True, fastmath=FAST)
+@njit(cache=True, fastmath=FAST, _nrt=False)
 def _ionic_of(c, z, fixed):
     ionic = 0.0
     charge = 0.0
@@ -166,12 +166,11 @@ def _ionic_of(c, z, fixed):
     return ionic
 
 
-@njit(cache=True, fastmath=FAST)
-def _cold_start(log_k, a, log_a, t, present, ph_start, x, z_comp):
+@njit(cache=True, fastmath=FAST, _nrt=False)
+def _cold_start(log_k, a, log_a, t, present, ph_start, x, z_comp, log_t, logc, step):
     """Per-component Newton steps on the mass balances in the log domain, ideal activities, no solids (the
     numpy solver's initial guess). Returns the starting ionic strength."""
     n, m = a.shape
-    log_t = np.empty(m)
     for j in range(1, m):
         if present[j]:
             x[j] = np.log10(t[j])
@@ -180,8 +179,6 @@ def _cold_start(log_k, a, log_a, t, present, ph_start, x, z_comp):
         log_t[j] = x[j]
     h = -ph_start
     x[0] = h
-    logc = np.empty(n)
-    step = np.empty(m)
     for _ in range(INIT_ITER):
         for i in range(n):
             acc = log_k[i]
@@ -225,7 +222,7 @@ def _cold_start(log_k, a, log_a, t, present, ph_start, x, z_comp):
     return min(max(0.5 * ionic, 1e-7), 3.0)
 
 
-@njit(cache=True, fastmath=FAST)
+@njit(cache=True, fastmath=FAST, _nrt=False)
 def _active_list(active, act):
     k = 0
     for s in range(active.size):
@@ -235,7 +232,7 @@ def _active_list(active, act):
     return k
 
 
-@njit(cache=True, fastmath=FAST)
+@njit(cache=True, fastmath=FAST, _nrt=False)
 def _restore(log_ks, b, x, lg, comp_species, act, k_act, free_idx, f, si, gram, y, cols):
     """Least-norm change of the free X that saturates every present solid exactly (the constraints are linear).
     Moving the pH (charge-balance mode) is a last resort (small weight). Returns False if singular."""
@@ -263,7 +260,7 @@ def _restore(log_ks, b, x, lg, comp_species, act, k_act, free_idx, f, si, gram, 
     return True
 
 
-@njit(cache=True, fastmath=FAST)
+@njit(cache=True, fastmath=FAST, _nrt=False)
 def _solve_kkt(kkt, rhs, size, f, k_act, cols, pin_col, keep_row, keep_col, red, red_rhs, sol):
     """Solve the KKT system kkt[:size, :size] y = rhs[:size] (unknowns: f changes of X, k_act solid amounts, then
     du if present), answer in rhs. A present solid whose saturation row holds a single change of X (in fixed-pH
@@ -360,7 +357,7 @@ def _solve_kkt(kkt, rhs, size, f, k_act, cols, pin_col, keep_row, keep_col, red,
     return True
 
 
-@njit(cache=True, fastmath=FAST)
+@njit(cache=True, fastmath=FAST, _nrt=False)
 def _settled(
     log_k,
     log_ks,
@@ -402,8 +399,8 @@ def _settled(
     if fixed:
         x[0] = -ph - lg[comp_species[0]]
     _concentrations(log_k, a_ptr, a_col, a_val, x, lg, comp_species, logc, c, xl)
-    dissolved[:] = 0.0
-    sumabs[:] = 0.0
+    dissolved.fill(0.0)
+    sumabs.fill(0.0)
     for i in range(n_sp):
         for q in range(a_ptr[i], a_ptr[i + 1]):
             dissolved[a_col[q]] += a_val[q] * c[i]
@@ -434,7 +431,7 @@ def _settled(
     return True
 
 
-@njit(cache=True, fastmath=FAST)
+@njit(cache=True, fastmath=FAST, _nrt=False)
 def _final(
     log_k,
     log_ks,
@@ -473,7 +470,7 @@ def _final(
     for i in range(n_sp):
         conc[i] = c_work[i]
         lg[i] = lg_work[i]
-    dissolved[:] = 0.0
+    dissolved.fill(0.0)
     charge = 0.0
     charge_scale = 0.0
     ionic_c = 0.0
@@ -519,7 +516,7 @@ def _final(
     return ok, ionic_c, charge
 
 
-@njit(cache=True, fastmath=FAST)
+@njit(cache=True, fastmath=FAST, _nrt=False)
 def _solve_point(
     log_k,
     log_ks,
@@ -618,12 +615,12 @@ def _solve_point(
             d_davies = (1.0 / (2.0 * root * (1.0 + root) ** 2) - DAVIES_LINEAR) * ionic * LN10
             for j in range(m):
                 dlg_comp[j] = 0.0 if (fixed and j == 0) else -davies_a * z_comp[j] * z_comp[j] * d_davies
-        dissolved[:] = 0.0
-        sumabs[:] = 0.0
-        jac[:, :] = 0.0
-        col_sq[:] = 0.0
-        col_z[:] = 0.0
-        g_col[:] = 0.0
+        dissolved.fill(0.0)
+        sumabs.fill(0.0)
+        jac.fill(0.0)
+        col_sq.fill(0.0)
+        col_z.fill(0.0)
+        g_col.fill(0.0)
         ionic_sq = 0.0
         charge = 0.0
         du_sq = 0.0
@@ -767,7 +764,7 @@ def _solve_point(
             break
         # Newton step, limited: no species above 100x the largest total, none already there rising by more
         # than MAX_STEP_LOG, no free concentration moving by more than 10 log units
-        dx[:] = 0.0
+        dx.fill(0.0)
         for r in range(f):
             dx[free_idx[r]] = rhs[r]
         ceiling = log_big + 2.0
@@ -780,7 +777,8 @@ def _solve_point(
                 room = ceiling - logc[i] if logc[i] < ceiling else MAX_STEP_LOG
                 lam = min(lam, room / rise)
         lam = min(lam, 10.0 / max(step, 1e-300))
-        x0[:] = x
+        for j in range(m):
+            x0[j] = x[j]
         phi0 = 0.0
         slope = 0.0
         for i in range(n_sp):
@@ -858,7 +856,7 @@ def _solve_point(
     return True, ionic
 
 
-@njit(cache=True, nogil=True, fastmath=FAST)
+@njit(cache=True, nogil=True, fastmath=FAST, _nrt=False)
 def solve_points(
     log_k,
     log_ks,
@@ -898,58 +896,22 @@ def solve_points(
     dissolved_out,
     ionic_c,
     charge,
+    buffers,
 ):
     """Solve every point; chunks[c]:chunks[c+1] are solved in order, each point from the one before it (or, with
     use_start, from its own given state). Fills x, n_out, active, ionic and ok (False: left to the numpy solver)."""
     n_sp, m = a.shape
     n_so = b.shape[0]
-    z_comp = np.empty(m)
+    work, work2, work3 = buffers
+    z_comp = work3[4]
     for j in range(m):
         z_comp[j] = z[comp_species[j]]
+    all_s = work2[6]
+    for s in range(n_so):
+        all_s[s] = s
     per_k = log_k.shape[0] > 1
     per_ks = log_ks.shape[0] > 1
     for ch in range(chunks.size - 1):
-        work = (
-            np.empty(n_sp),
-            np.empty(n_sp),
-            np.empty(n_sp),
-            np.empty(n_sp),
-            np.empty(n_sp),
-            np.empty(n_so),
-            np.empty(m),
-            np.empty(m),
-            np.empty(m),
-            np.empty(m),
-            np.empty(m),
-            np.empty((m, m)),
-            np.empty((m + n_so + 1, m + n_so + 1)),
-            np.empty(m + n_so + 1),
-            np.empty(m),
-        )
-        work2 = (
-            np.zeros(n_so),
-            np.empty((n_so, n_so)),
-            np.empty(n_so),
-            np.empty(m, np.int64),
-            np.empty(m, np.int64),
-            np.empty(n_so, np.int64),
-            np.arange(n_so),
-            np.empty(m + n_so + 1, np.int64),
-            np.empty(n_so, np.int64),
-            np.empty(m + n_so + 1, np.int64),
-            np.empty(m + n_so + 1, np.int64),
-            np.empty((m + n_so + 1, m + n_so + 1)),
-            np.empty(m + n_so + 1),
-        )
-        work3 = (
-            np.empty(m),
-            np.empty(m),
-            np.empty(m),
-            np.empty(m),
-            z_comp,
-            np.empty(m),
-            np.empty(m + n_so + 1),
-        )
         prev = -1
         prev2 = -1
         for p in range(chunks[ch], chunks[ch + 1]):
@@ -1052,7 +1014,9 @@ def solve_points(
                     ionic[p] = i_out
             if not good:
                 start_ph = ph[p] if fixed else ph_guess[p]
-                i0 = _cold_start(lk, a, log_a, t[p], present[p], start_ph, x[p], z_comp)
+                i0 = _cold_start(
+                    lk, a, log_a, t[p], present[p], start_ph, x[p], z_comp, work[9], work[3], work[10]
+                )
                 for s in range(n_so):
                     active[p, s] = False
                 good, i_out = _solve_point(
@@ -1138,17 +1102,44 @@ def _reset_pool() -> None:
 os.register_at_fork(after_in_child=_reset_pool)
 
 
-def run_chunks(args: tuple, chunks: np.ndarray) -> None:
-    """Run solve_points(*args[:chunk position], chunks, *rest) over the chunks, one chunk per thread (the
-    compiled kernel releases the GIL); a single chunk runs in the calling thread."""
+def buffers(n_species: int, n_components: int, n_solids: int) -> tuple:
+    """Working arrays for one chunk of solve_points (the kernel allocates nothing: it runs without numba's
+    reference counting, which in a per-point loop costs as much as the arithmetic, and more on two threads)."""
+    n_sp, m, n_so = n_species, n_components, n_solids
+    big = m + n_so + 1
+    work = tuple(np.empty(n_sp) for _ in range(5)) + (np.empty(n_so),) + tuple(np.empty(m) for _ in range(5))
+    work += (np.empty((m, m)), np.empty((big, big)), np.empty(big), np.empty(m))
+    work2 = (
+        np.zeros(n_so),
+        np.empty((n_so, n_so)),
+        np.empty(n_so),
+        np.empty(m, np.int64),
+        np.empty(m, np.int64),
+        np.empty(n_so, np.int64),
+        np.empty(n_so, np.int64),
+        np.empty(big, np.int64),
+        np.empty(n_so, np.int64),
+        np.empty(big, np.int64),
+        np.empty(big, np.int64),
+        np.empty((big, big)),
+        np.empty(big),
+    )
+    work3 = tuple(np.empty(m) for _ in range(6)) + (np.empty(big),)
+    return work, work2, work3
+
+
+def run_chunks(args: tuple, chunks: np.ndarray, n_species: int, n_components: int, n_solids: int) -> None:
+    """Run solve_points(*args[:chunk position], chunks, *rest, buffers) over the chunks, one chunk per thread
+    (the compiled kernel releases the GIL); a single chunk runs in the calling thread."""
     where = CHUNKS_ARGUMENT
+    sizes = (n_species, n_components, n_solids)
     if chunks.size <= 2:
-        solve_points(*args[:where], chunks, *args[where:])
+        solve_points(*args[:where], chunks, *args[where:], buffers(*sizes))
         return
     if not _POOL:
         _POOL.append(ThreadPoolExecutor(max_workers=threads(), thread_name_prefix="equilibrium"))
     jobs = [
-        _POOL[0].submit(solve_points, *args[:where], chunks[i : i + 2].copy(), *args[where:])
+        _POOL[0].submit(solve_points, *args[:where], chunks[i : i + 2].copy(), *args[where:], buffers(*sizes))
         for i in range(chunks.size - 1)
     ]
     for job in jobs:

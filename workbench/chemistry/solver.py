@@ -461,7 +461,7 @@ class _State:
             ionic,
             charge,
         )
-        kernel.run_chunks(args, chunks)
+        kernel.run_chunks(args, chunks, n_sp, self.m, n_so)
         ph = -(self.x[:, 0] + log_gamma[:, self.comp_species[0]])
         eq = Equilibrium(
             tableau=tab,
