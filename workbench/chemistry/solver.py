@@ -175,7 +175,7 @@ def solve(
         return _solve_numpy(tab, totals, ph_arr, activity, guess, log_k, log_ks, start).finish()
     # the compiled kernel, which verifies what it returns; the points it gives up go to the numpy solver, whose
     # answers are verified in the same way (State.finish)
-    state = _State(tab, totals, ph_arr, activity, log_k, log_ks)
+    state = _State(tab, totals, ph_arr, activity, log_k, log_ks, numpy_solver=False)
     if start is not None:
         state.start_from(start, hold_ph=False)  # the kernel holds the pH itself
     eq, rest = state.kernel(start is not None, guess)
@@ -246,7 +246,7 @@ def _solve_numpy(tab, totals, ph_arr, activity, guess, log_k, log_ks, start) -> 
 
 CONTINUATION_MIN_POINTS = 24
 KERNEL_MIN_CHUNK = 64  # fewer points per chunk than this are not worth a thread (each chunk starts cold)
-KERNEL_THREAD_WORK = 20_000  # points x species below which one thread is faster than handing work to two
+KERNEL_THREAD_WORK = 25_000  # points x (species + 20) below which one thread is faster than handing work to two
 
 
 def _continuation_plan(totals: np.ndarray, log_k: np.ndarray | None):
@@ -325,16 +325,42 @@ def _limit_blas() -> None:
         _BLAS_LIMITED = True
 
 
-_KERNEL_TABLEAU: dict = {}
+_TABLEAU_CACHE: dict = {}
+
+
+def _per_tableau(kind: str, tab: Tableau, make) -> tuple:
+    """Arrays derived from a tableau alone, kept for the last few tableaux used (a tableau is immutable)."""
+    key = (kind, id(tab))
+    hit = _TABLEAU_CACHE.get(key)
+    if hit is not None and hit[0] is tab:
+        return hit[1]
+    value = make(tab)
+    if len(_TABLEAU_CACHE) >= 64:
+        _TABLEAU_CACHE.pop(next(iter(_TABLEAU_CACHE)))
+    _TABLEAU_CACHE[key] = (tab, value)
+    return value
+
+
+def _tableau_arrays(tab: Tableau) -> tuple:
+    """Row of each component's free species, each solid's weight in the ranking of supersaturated solids,
+    and log10 of the positive stoichiometric coefficients (the initial guess)."""
+
+    def make(tab):
+        weight = np.maximum(1.0, np.abs(tab.b[:, 1:]).sum(axis=1))
+        a_pos = np.clip(tab.a[:, 1:], 0.0, None)
+        with np.errstate(divide="ignore"):
+            log_a = np.where(a_pos > 0, np.log10(np.where(a_pos > 0, a_pos, 1.0)), -np.inf)
+        return _component_rows(tab), weight, log_a
+
+    return _per_tableau("arrays", tab, make)
 
 
 def _kernel_tableau(tab: Tableau, log_a: np.ndarray, weight: np.ndarray) -> tuple:
-    """The kernel's arrays for one tableau (its stoichiometry also as compressed rows), kept for the last few
-    tableaux used."""
-    key = id(tab)
-    hit = _KERNEL_TABLEAU.get(key)
-    if hit is not None and hit[0] is tab:
-        return hit[1]
+    """The kernel's arrays for one tableau (its stoichiometry also as compressed rows)."""
+    return _per_tableau("kernel", tab, lambda tab: _kernel_arrays(tab, log_a, weight))
+
+
+def _kernel_arrays(tab: Tableau, log_a: np.ndarray, weight: np.ndarray) -> tuple:
     nz_rows, nz_cols = np.nonzero(tab.a)
     arrays = (
         np.ascontiguousarray(tab.a, dtype=float),
@@ -348,9 +374,6 @@ def _kernel_tableau(tab: Tableau, log_a: np.ndarray, weight: np.ndarray) -> tupl
         np.ascontiguousarray(weight, dtype=float),
         float(tab.davies_a),
     )
-    if len(_KERNEL_TABLEAU) >= 32:
-        _KERNEL_TABLEAU.pop(next(iter(_KERNEL_TABLEAU)))
-    _KERNEL_TABLEAU[key] = (tab, arrays)
     return arrays
 
 
@@ -358,7 +381,14 @@ class _State:
     """Working arrays of one solve (internal)."""
 
     def __init__(
-        self, tab: Tableau, totals: np.ndarray, ph: np.ndarray | None, activity: str, log_k=None, log_ks=None
+        self,
+        tab: Tableau,
+        totals: np.ndarray,
+        ph: np.ndarray | None,
+        activity: str,
+        log_k=None,
+        log_ks=None,
+        numpy_solver: bool = True,
     ):
         self.tab = tab
         n_all = totals.shape[0]
@@ -386,24 +416,21 @@ class _State:
         self.n = np.zeros((n_pts, s))
         self.active = np.zeros((n_pts, s), bool)
         self.ionic = np.full(n_pts, 1e-7)
-        self.bracket = np.full((5, n_pts), np.nan)  # root search on log10 I (see update_ionic_strength)
-        # the settled state before the last ionic-strength step (see halve_ionic_step)
-        self.x_before = np.zeros((n_pts, m))
-        self.n_before = np.zeros((n_pts, s))
-        self.ionic_before = np.full(n_pts, np.nan)
-        self.halvings = np.zeros(n_pts, int)
-        self.changes = np.zeros(n_pts, int)  # how often each point's set of solids has changed
-        self.added = np.zeros((n_pts, s), bool)  # solids added at the last update
-        self.waiting = np.zeros((n_pts, s), int)  # passes a taken-back solid waits before it may enter again
-        self.comp_species = _component_rows(tab)
+        if numpy_solver:  # the numpy solver's own bookkeeping (the kernel keeps its own)
+            self.bracket = np.full((5, n_pts), np.nan)  # root search on log10 I (see update_ionic_strength)
+            # the settled state before the last ionic-strength step (see halve_ionic_step)
+            self.x_before = np.zeros((n_pts, m))
+            self.n_before = np.zeros((n_pts, s))
+            self.ionic_before = np.full(n_pts, np.nan)
+            self.halvings = np.zeros(n_pts, int)
+            self.changes = np.zeros(n_pts, int)  # how often each point's set of solids has changed
+            self.added = np.zeros((n_pts, s), bool)  # solids added at the last update
+            self.waiting = np.zeros((n_pts, s), int)  # passes a taken-back solid waits before it may enter again
+            self.outer = LN10 * (tab.a[:, :, None] * tab.a[:, None, :]).reshape(len(tab.species), m * m)
+        self.comp_species, self.weight, self.log_a = _tableau_arrays(tab)
         # a solid can only form at a point where all its components are present
         needs = (np.abs(tab.b[:, 1:]) > 0).astype(float)  # (s, m-1): the components each solid contains
         self.possible = ((~self.present[:, 1:]).astype(float) @ needs.T) == 0.0
-        self.weight = np.maximum(1.0, np.abs(tab.b[:, 1:]).sum(axis=1))
-        self.outer = LN10 * (tab.a[:, :, None] * tab.a[:, None, :]).reshape(len(tab.species), m * m)
-        a_pos = np.clip(tab.a[:, 1:], 0.0, None)
-        with np.errstate(divide="ignore"):
-            self.log_a = np.where(a_pos > 0, np.log10(np.where(a_pos > 0, a_pos, 1.0)), -np.inf)
 
     # ------------------------------------------------------------------ compiled fast path
     def kernel(self, use_start: bool, guess: np.ndarray) -> np.ndarray:
@@ -418,9 +445,9 @@ class _State:
             self.x[:, 1:] = np.where(self.present[:, 1:], 0.0, ABSENT)
         # threads pay only for enough work (points x species); with a start, chunks cost nothing extra and
         # several per thread balance the load; without, each chunk's first point starts cold: one per thread
-        threads = kernel.threads() if n_pts * len(tab.species) >= KERNEL_THREAD_WORK else 1
+        threads = kernel.threads() if n_pts * (len(tab.species) + 20) >= KERNEL_THREAD_WORK else 1
         per_chunk = max(KERNEL_MIN_CHUNK, -(-n_pts // (threads * (4 if use_start and threads > 1 else 1))))
-        chunks = np.unique(np.append(np.arange(0, n_pts, per_chunk), n_pts)).astype(np.int64)
+        chunks = np.append(np.arange(0, n_pts, per_chunk, dtype=np.int64), np.int64(n_pts))
         ok = np.zeros(n_pts, bool)
         self.stats = np.zeros((n_pts, 3), np.int64)
         ionic_ceiling = np.inf if self.ideal else MAX_IONIC_STRENGTH
