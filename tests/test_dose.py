@@ -411,3 +411,18 @@ def test_sludge_table_columns_without_flow():
     assert list(table.columns) == ["formula", "kind", "metal", "mol_l", "mg_l"]
     assert "reagent inerts" not in table.index  # a solution brings no inerts
     assert isinstance(table, pd.DataFrame) and table.index.name == "solid"
+
+
+def test_closure_holds_the_measured_ph_when_the_acids_chloride_precipitates_silver():
+    """Found by the titration property test: a silver water at pH 9.9 whose unmeasured acid (entered as Cl-)
+    precipitates AgCl, which carries none of the acid's charge until the silver is used up; the closure used to
+    stop after its plain steps with 'did not converge'. The curve must start at the measured pH."""
+    water = wb.Water(
+        metals_mg_l={"Ag": 1321.94, "Pb": 1000.0, "Ni": 7.17, "Cu": 0.356, "Zn": 1.0},
+        calcium_mg_l=1.0,
+        ph=9.9358,
+        temperature_c=23.85,
+    )
+    curve = wb.dose_curve(water, "caustic", [0.0, 1.0, 2.6])
+    assert curve["pH"].iloc[0] == pytest.approx(9.9358, abs=1e-9)
+    assert (np.diff(curve["pH"].to_numpy()) > 0).all()

@@ -15,10 +15,12 @@ Davies activity coefficients at the reported ionic strength, saturation indices 
 (present solids at saturation, absent ones not supersaturated, both within 1e-9), non-negative solid amounts,
 the pH held (fixed-pH mode) or electroneutrality (charge-balance mode), dissolved metal never above the influent.
 
-Four properties draw 10,000 waters in all (EXAMPLES): every entry point on each water; the residual curve alone;
+Five properties draw 13,000 waters in all (EXAMPLES): every entry point on each water; the residual curve alone;
 scalar and array pH giving the same residual and the same refusal; metals far below the solubility of any of
-their solids staying dissolved (residual = influent). Each property's examples are split over two worker
-processes with fixed seeds, so every run draws the same waters (about 4 minutes on two cores).
+their solids staying dissolved (residual = influent); a reagent dose curve (any of the five reagents, 2-12 doses
+up to 1-5,000 mg/L, every solve verified; with caustic soda the pH never falls). Each property's examples are
+split over two worker processes with fixed seeds, so every run draws the same waters (about 2 minutes on two
+cores).
 ``WORKBENCH_PROPERTY_SCALE=10`` multiplies every example count for a deeper run; ``-m slow`` selects these tests,
 ``-m "not slow"`` leaves them out. Fixed cases complete the picture: each metal alone over the pH scale at 5,
 25 and 50 °C in both solver modes, and the waters at the edge of the input space (pure water, major ions only,
@@ -48,7 +50,13 @@ from workbench.treatment.water import METALS
 
 SCALE = int(os.environ.get("WORKBENCH_PROPERTY_SCALE", "1"))
 #: examples (= random waters) per property in one run; together at least 10,000
-EXAMPLES = {"every entry point": 2_500, "residual curve": 7_000, "scalar and array": 200, "tiny metals": 300}
+EXAMPLES = {
+    "every entry point": 2_500,
+    "residual curve": 7_000,
+    "scalar and array": 200,
+    "tiny metals": 300,
+    "titration": 3_000,
+}
 
 MAX_METAL_MG_L = 5_000.0
 MAX_ION_MG_L = 20_000.0
@@ -101,17 +109,18 @@ TEMPERATURE_C = st.floats(*wp.VALID_TEMPERATURE_C)
 
 
 ANY_METALS = st.fixed_dictionaries({}, optional={k: METAL_MG_L for k in METALS})
+PH_OR_NONE = st.none() | PH  # a water with or without a measured pH
 
 
 @st.composite
-def water_inputs(draw, metals=ANY_METALS):
+def water_inputs(draw, metals=ANY_METALS, measured_ph=PH_OR_NONE):
     """Keyword arguments of a valid Water (its alkalinity/pH pair may still be inconsistent)."""
     kwargs = {"metals_mg_l": draw(metals)}
     kwargs.update(draw(st.fixed_dictionaries({}, optional={f: ION_MG_L for f in MAJOR_IONS + LIGANDS})))
     alkalinity = draw(st.none() | _log_scale(LOWEST_ALKALINITY_MG_L_CACO3, MAX_ALKALINITY_MG_L_CACO3))
     if alkalinity is not None:
         kwargs["alkalinity_mg_l_caco3"] = alkalinity
-    kwargs["ph"] = draw(st.none() | PH)
+    kwargs["ph"] = draw(measured_ph)
     kwargs["temperature_c"] = draw(TEMPERATURE_C)
     return kwargs
 
@@ -326,6 +335,35 @@ def tiny_metals_stay_dissolved(kwargs, drawn_ph, counts: Counter) -> None:
             )
 
 
+def titration(kwargs, reagent, top_dose, n_doses, counts: Counter) -> None:
+    """A reagent dose curve (charge-balance mode, every dose one solve): each answer verified, or a clear refusal
+    (ionic strength; a water without a measured pH cannot be titrated). With caustic soda the pH never falls as
+    it is added. With the other reagents it can, and does in real waters: soda ash that precipitates a metal
+    hydroxycarbonate (5 Zn2+ + 2 CO3 2- + 6 H2O -> Zn5(CO3)2(OH)6 + 6 H+) releases more acid than its carbonate
+    takes up, and the calcium of lime can free a metal from a chelate to hydrolyse (both found by this test)."""
+    water = make_water(kwargs, counts)
+    counts["waters"] += 1
+    doses = np.linspace(0.0, top_dose, n_doses)
+    with observed_solves() as calls:
+        try:
+            curve = wb.dose_curve(water, reagent, doses)
+        except wb.ModelRangeError as err:
+            assert_refusal_is_the_model_range(err)
+            counts["titration refused: ionic strength"] += 1
+            return
+        except wb.InputError as err:
+            assert err.field == "ph" and water.ph is None, str(err)
+            counts["titration refused: no measured pH"] += 1
+            return
+    counts["titration solved"] += 1
+    for tab, totals, ph, eq in calls:
+        assert_verified(tab, totals, ph, eq)
+    ph_curve = curve["pH"].to_numpy()
+    assert np.isfinite(ph_curve).all()
+    if reagent == "caustic":
+        assert (np.diff(ph_curve) >= -1e-9).all(), f"pH falls as caustic is added: {ph_curve}"
+
+
 TINY_METAL_MG_L = _log_scale(1e-10, 1e-6)
 DRAWN_PH = st.lists(PH, min_size=1, max_size=3)
 PROPERTIES = {
@@ -337,6 +375,15 @@ PROPERTIES = {
     "scalar and array": (
         scalar_and_array_agree,
         dict(kwargs=water_inputs(), ph=st.lists(PH, min_size=2, max_size=3)),
+    ),
+    "titration": (
+        titration,
+        dict(
+            kwargs=water_inputs(measured_ph=PH),  # a dose follows from the measured pH
+            reagent=st.sampled_from(("lime", "caustic", "quicklime", "magnesium_hydroxide", "soda_ash")),
+            top_dose=_log_scale(1.0, 5_000.0),
+            n_doses=st.integers(2, 12),
+        ),
     ),
     "tiny metals": (
         tiny_metals_stay_dissolved,
@@ -432,6 +479,13 @@ def test_each_metal_alone_over_the_ph_scale_is_verified_in_both_solver_modes(met
                 raise
     assert counts["residual_curve solved"] >= 0.8 * counts["waters"], dict(counts)
     assert counts["charge balance solved"] == counts["waters"], dict(counts)
+
+
+@pytest.mark.slow
+def test_reagent_dose_curve_of_every_valid_water_is_verified_and_caustic_never_lowers_the_ph():
+    counts = run_property("titration", EXAMPLES["titration"])
+    assert counts["waters"] >= EXAMPLES["titration"] * SCALE
+    assert counts["titration solved"] >= 0.5 * counts["waters"]
 
 
 def test_the_property_tests_draw_at_least_ten_thousand_waters():

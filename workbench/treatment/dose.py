@@ -42,7 +42,8 @@ TOTAL_ACIDITY_PH = 8.3
 MAX_FLOW_M3_D = 1.0e6
 MAX_CALCIUM_CHLORIDE_MG_L = 50_000.0
 CLOSURE_TOL_EQ_L = 1e-12  # charge-balance closure converged [eq/L]
-CLOSURE_MAX_ITER = 12
+CLOSURE_MAX_ITER = 12  # plain steps before the root is bracketed
+CLOSURE_MAX_DOUBLINGS = 80  # widening steps of the bracket
 SEARCH_MAX_ACTIVE_MOL_L = 0.3  # largest amount of active ingredient tried by the searches [mol/L]
 SEARCH_WIDE_ACTIVE_MOL_L = 1.0  # last try when a reagent without ceiling has not reached the target [mol/L]
 SEARCH_GRID = 40  # points of the first, geometric grid of a search
@@ -161,13 +162,45 @@ def _close_charge_balance(tab, raw: np.ndarray, ph: float, activity: str) -> tup
     """Strong base (+, as Na+) or acid (-, as Cl-) that makes the analysis hold its measured pH. [eq/L]
 
     The strong base a fixed-pH solve needs is the charge-balance residual of the analysis. Adding it as Na+ or
-    Cl- shifts the ion pairs those ions form a little, so the residual is taken again until it vanishes."""
-    net = 0.0
+    Cl- shifts the ion pairs those ions form a little, so the residual is taken again until it vanishes. Where
+    that is slow (the acid's chloride precipitating silver as AgCl carries none of the acid's charge until the
+    silver is used up), the root is bracketed and found by Brent's method: the base still missing never rises
+    as base is added."""
+
+    def missing(net: float) -> float:
+        eq = solver.solve(tab, _with_closure(tab, raw, net), np.array([ph]), activity=activity)
+        return float(eq.strong_base[0])
+
+    net, residual = 0.0, missing(0.0)
+    tried = [(net, residual)]
     for _ in range(CLOSURE_MAX_ITER):
-        totals = _with_closure(tab, raw, net)
-        eq = solver.solve(tab, totals, np.array([ph]), activity=activity)
-        residual = float(eq.strong_base[0])
+        if abs(residual) <= CLOSURE_TOL_EQ_L:
+            return _with_closure(tab, raw, net), net
         net += residual
+        residual = missing(net)
+        tried.append((net, residual))
+    if abs(residual) <= CLOSURE_TOL_EQ_L:
+        return _with_closure(tab, raw, net), net
+    below = max((p for p in tried if p[1] > 0), default=None)  # base still missing: the root lies above
+    above = min((p for p in tried if p[1] < 0), default=None)
+    step = max(abs(residual), CLOSURE_TOL_EQ_L)
+    for _ in range(CLOSURE_MAX_DOUBLINGS):
+        if below is not None and above is not None:
+            break
+        step *= 2.0
+        probe = net + step if below is not None else net - step
+        value = missing(probe)
+        if value > 0:
+            below = (probe, value) if below is None or probe > below[0] else below
+        else:
+            above = (probe, value) if above is None or probe < above[0] else above
+    if below is not None and above is not None:
+        from scipy import optimize  # imported here: scipy.optimize is slow to import
+
+        net = float(
+            optimize.brentq(missing, below[0], above[0], xtol=CLOSURE_TOL_EQ_L, rtol=4 * np.finfo(float).eps)
+        )
+        residual = missing(net)
         if abs(residual) <= CLOSURE_TOL_EQ_L:
             return _with_closure(tab, raw, net), net
     raise ConvergenceError(
