@@ -899,7 +899,10 @@ def solve_points(
     buffers,
 ):
     """Solve every point; chunks[c]:chunks[c+1] are solved in order, each point from the one before it (or, with
-    use_start, from its own given state). Fills x, n_out, active, ionic and ok (False: left to the numpy solver)."""
+    use_start, from its own given state). Fills x, n_out, active, ionic and ok (False: left to the numpy solver),
+    the verified solution (conc, lg_out, si_out, dissolved_out, ionic_c, charge) and, per point, diagnostics in
+    stats: saturation restores, Newton steps, line-search trials and final checks (kept on the solver's working
+    state for developers measuring the kernel)."""
     n_sp, m = a.shape
     n_so = b.shape[0]
     work, work2, work3 = buffers
