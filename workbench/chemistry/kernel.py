@@ -1,17 +1,22 @@
 """Compiled per-point equilibrium kernel: the solver's fast path.
 
-The same method as :mod:`workbench.chemistry.solver` (Newton-Raphson on the convex dual in log10 free
-concentrations, an active set of solids, Davies activity coefficients with the ionic strength iterated outside
-the Newton passes), written as one loop over points and compiled with numba. Each point starts from the solution
-of the point before it in the same chunk (a curve along pH or dose is a continuation: two or three Newton steps
-per point) or from a given start; only the first point of a chunk, or a point whose components differ from its
-neighbour's, starts cold.
+The same model as :mod:`workbench.chemistry.solver` (Newton-Raphson on the convex dual in log10 free
+concentrations, an active set of solids, Davies activity coefficients), written as one loop over points and
+compiled with numba. Each point starts from the solution of the point before it in the same chunk, extrapolated
+from the two before (a curve along pH or dose is a continuation: two or three Newton steps per point), or from a
+given start moved as the point before moved from its own (Monte Carlo samples); only the first point of a chunk,
+or a point whose components differ from its neighbour's, starts cold. Near the solution the ionic strength is one
+more Newton unknown (u = log10 I, with G = log10 I(computed) - u = 0), and a present solid that fixes a single
+free concentration (a hydroxide at fixed pH) is eliminated before the LU.
 
-The kernel is kept simple on purpose: it adds one solid at a time and drops the most negative one, it uses a
-secant step on the ionic strength, and whenever something does not go straight (Newton does not converge, a
-singular system, too many changes of the solids, an ionic strength beyond the activity model's range) it gives
-the point up (``ok[p] = False``). The numpy solver, with all its safeguards, then solves those points, and every
-point, from either path, passes the same verification before it is returned.
+The kernel is kept simple on purpose: it adds one solid at a time and drops the most negative one, and whenever
+something does not go straight (Newton does not converge, a singular system, too many changes of the solids, an
+ionic strength beyond the activity model's range, a failed verification) it gives the point up (``ok[p] =
+False``). The numpy solver, with all its safeguards, then solves those points; every point, from either path,
+passes the same verification before it is returned.
+
+It runs without numba's reference counting (``_nrt=False``) and allocates nothing: the working arrays come from
+Python (:func:`buffers`), one set per chunk, and :func:`run_chunks` runs chunks on a thread per core.
 """
 
 from __future__ import annotations

@@ -22,9 +22,13 @@ The stationarity conditions are the mass balances, with the solid amounts n_s as
 * Activity: Davies coefficients at the ionic strength I; I is iterated outside the Newton passes (secant on
   log10 I), the counter-ion of the acid/base that holds the pH counted as monovalent in fixed-pH mode.
 
-All points are solved at once (numpy batches, no Python loop over points). The result is verified before it is
-returned: mass balance closes to 1e-10, absent solids are not supersaturated, present solids are saturated with
-positive amounts, and nothing is NaN; otherwise :class:`~workbench.errors.ConvergenceError` names the points.
+Two engines solve these equations. By default a compiled kernel (:mod:`workbench.chemistry.kernel`) solves the
+points one after another, each from its neighbour; any point it gives up goes to the numpy solver in this module,
+which solves all points at once (numpy batches, no Python loop over points) with every safeguard below
+(``engine="numpy"`` uses it alone). Either way the result is verified before it is returned: mass balance closes
+to 1e-10, absent solids are not supersaturated, present solids are saturated with positive amounts, the activity
+coefficients are those of the solution's ionic strength, and nothing is NaN; otherwise
+:class:`~workbench.errors.ConvergenceError` names the points.
 """
 
 from __future__ import annotations
