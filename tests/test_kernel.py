@@ -11,11 +11,12 @@ start (Monte Carlo), ideal single metals, and waters that need the numpy solver'
 from __future__ import annotations
 
 import multiprocessing
+from dataclasses import replace
 
 import numpy as np
 import pytest
 
-import workbench as wb
+from tests.benchmarks.__main__ import mixed_water as benchmark_water
 from workbench.chemistry import solver, tableau
 from workbench.errors import ModelRangeError
 from workbench.treatment.dose import dose_curve
@@ -26,20 +27,8 @@ FLOOR = 1e-16
 
 
 def mixed_water(**changes):
-    fields = dict(
-        metals_mg_l={"Cu": 18.0, "Ni": 12.0, "Zn": 25.0, "Cd": 0.8, "Pb": 1.5, "Cr": 9.0, "Fe": 6.0, "Al": 3.0},
-        ph=6.4,
-        temperature_c=22.0,
-        alkalinity_mg_l_caco3=150.0,
-        sulfate_mg_l=850.0,
-        chloride_mg_l=180.0,
-        sodium_mg_l=320.0,
-        calcium_mg_l=60.0,
-        magnesium_mg_l=15.0,
-        ammonia_mg_l_n=5.0,
-    )
-    fields.update(changes)
-    return wb.Water(**fields)
+    """The benchmark's mixed water (8 metals, Ca, Mg, Na, carbonate, sulfate, chloride, ammonia), with changes."""
+    return replace(benchmark_water(), **changes)
 
 
 def both(tab, totals, ph=None, **kw):

@@ -988,9 +988,19 @@ def solve_points(
                                 if free[p, j]:
                                     x[p, j] = x[prev, j] + ratio * (x[prev, j] - x[prev2, j])
                             ionic[p] = ionic[prev] * (ionic[prev] / ionic[prev2]) ** ratio
+            # from the warm start, if any; then, if that fails, cold
             good = False
-            if warm:
-                good, i_out = _solve_point(
+            for cold in (False, True):
+                if good or (not cold and not warm):
+                    continue
+                if cold:
+                    start_ph = ph[p] if fixed else ph_guess[p]
+                    ionic[p] = _cold_start(
+                        lk, a, log_a, t[p], present[p], start_ph, x[p], z_comp, work[9], work[3], work[10]
+                    )
+                    for s in range(n_so):
+                        active[p, s] = False
+                good, ionic[p] = _solve_point(
                     lk,
                     lks,
                     a_ptr,
@@ -1012,50 +1022,12 @@ def solve_points(
                     active[p],
                     ionic[p],
                     max_ionic,
-                    True,
+                    not cold,
                     work,
                     work2,
                     work3,
                     stats[p],
                 )
-                if good:
-                    ionic[p] = i_out
-            if not good:
-                start_ph = ph[p] if fixed else ph_guess[p]
-                i0 = _cold_start(
-                    lk, a, log_a, t[p], present[p], start_ph, x[p], z_comp, work[9], work[3], work[10]
-                )
-                for s in range(n_so):
-                    active[p, s] = False
-                good, i_out = _solve_point(
-                    lk,
-                    lks,
-                    a_ptr,
-                    a_col,
-                    a_val,
-                    b,
-                    z,
-                    comp_species,
-                    weight,
-                    davies_a,
-                    ideal,
-                    fixed,
-                    ph[p],
-                    t[p],
-                    free[p],
-                    possible[p],
-                    x[p],
-                    n_out[p],
-                    active[p],
-                    i0,
-                    max_ionic,
-                    False,
-                    work,
-                    work2,
-                    work3,
-                    stats[p],
-                )
-                ionic[p] = i_out
             if good:
                 good, ionic_c[p], charge[p] = _final(
                     lk,

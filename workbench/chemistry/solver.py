@@ -359,12 +359,13 @@ def _tableau_arrays(tab: Tableau) -> tuple:
     return _per_tableau("arrays", tab, make)
 
 
-def _kernel_tableau(tab: Tableau, log_a: np.ndarray, weight: np.ndarray) -> tuple:
+def _kernel_tableau(tab: Tableau) -> tuple:
     """The kernel's arrays for one tableau (its stoichiometry also as compressed rows)."""
-    return _per_tableau("kernel", tab, lambda tab: _kernel_arrays(tab, log_a, weight))
+    return _per_tableau("kernel", tab, _kernel_arrays)
 
 
-def _kernel_arrays(tab: Tableau, log_a: np.ndarray, weight: np.ndarray) -> tuple:
+def _kernel_arrays(tab: Tableau) -> tuple:
+    comp_species, weight, log_a = _tableau_arrays(tab)
     nz_rows, nz_cols = np.nonzero(tab.a)
     arrays = (
         np.ascontiguousarray(tab.a, dtype=float),
@@ -374,7 +375,7 @@ def _kernel_arrays(tab: Tableau, log_a: np.ndarray, weight: np.ndarray) -> tuple
         np.ascontiguousarray(log_a),
         np.ascontiguousarray(tab.b, dtype=float),
         np.ascontiguousarray(tab.z, dtype=float),
-        _component_rows(tab).astype(np.int64),
+        comp_species.astype(np.int64),
         np.ascontiguousarray(weight, dtype=float),
         float(tab.davies_a),
     )
@@ -437,10 +438,10 @@ class _State:
         self.possible = ((~self.present[:, 1:]).astype(float) @ needs.T) == 0.0
 
     # ------------------------------------------------------------------ compiled fast path
-    def kernel(self, use_start: bool, guess: np.ndarray) -> np.ndarray:
+    def kernel(self, use_start: bool, guess: np.ndarray) -> tuple[Equilibrium, np.ndarray]:
         """Solve the points with the compiled kernel (:mod:`workbench.chemistry.kernel`), in place. Without a
         start, points are solved in order, each from the one before (a continuation along the curve), in one chunk
-        per thread. Returns the points it gave up."""
+        per thread. Returns the Equilibrium (verified at the points it solved) and the points it gave up."""
         from workbench.chemistry import kernel
 
         tab = self.tab
@@ -465,7 +466,7 @@ class _State:
         args = (
             np.ascontiguousarray(self.log_k if self.log_k.strides[0] else self.log_k[:1]),
             np.ascontiguousarray(self.log_ks if self.log_ks.strides[0] else self.log_ks[:1]),
-            *_kernel_tableau(tab, self.log_a, self.weight),
+            *_kernel_tableau(tab),
             self.ideal,
             self.ph is not None,
             np.zeros(n_pts) if self.ph is None else np.ascontiguousarray(self.ph),
