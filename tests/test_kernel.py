@@ -71,6 +71,35 @@ def test_single_metal_ideal_matches():
     assert_same(*both(tab, t, np.linspace(6.0, 14.0, 500), activity="ideal"))
 
 
+def test_points_fixed_by_their_solids_need_no_newton_step_and_match(monkeypatch):
+    """Copper and zinc, ideal activities, pH 4 to 14: where both oxides are present every free concentration
+    follows from the pH (no Newton step); the kernel must take that path there, leave it where a solid appears or
+    dissolves (ZnO redissolves as zincate near pH 12.5), and agree with the numpy solver everywhere."""
+    tab = tableau.build(("Cu^2+", "Zn^2+"), 25.0, "aged")
+    t = np.zeros(len(tab.components))
+    t[tab.component("Cu^2+")] = 1e-4
+    t[tab.component("Zn^2+")] = 1e-4
+    ph = np.linspace(4.0, 14.0, 401)
+    states = []
+    real = solver._State.kernel
+
+    def keep_state(self, *args):
+        states.append(self)
+        return real(self, *args)
+
+    monkeypatch.setattr(solver._State, "kernel", keep_state)
+    fast, ref = both(tab, t, ph, activity="ideal")
+    assert_same(fast, ref)
+    newton_steps = states[0].stats[:, 1]
+    both_solids = (ref.solid_amount > 0).all(axis=1)
+    first = np.flatnonzero(both_solids)[0]
+    # past the first point with both solids, no Newton step while both stay; Newton steps where one dissolves
+    assert both_solids[first:].sum() > 150
+    assert (newton_steps[first + 1 :][both_solids[first + 1 :]] == 0).all()
+    gone = np.flatnonzero(~both_solids[first:])[0] + first
+    assert newton_steps[gone] > 0 and ph[gone] > 12.0
+
+
 def test_lime_titration_in_charge_balance_mode_matches():
     water = mixed_water()
     doses = np.linspace(0.0, 800.0, 60)

@@ -23,6 +23,7 @@ from __future__ import annotations
 
 import inspect
 import os
+import threading
 from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
@@ -59,6 +60,18 @@ MAX_CHANGES = 40  # changes of the solids per point
 UNDERFLOW_LOG = -290.0  # species below 10**this mol/L are taken as zero
 # fast-math flags without "nnan"/"ninf": the kernel tests for NaN and infinity
 FAST = {"reassoc", "contract", "arcp", "nsz", "afn"}
+# the packed working arrays (buffers): rows named where the solve_points loop uses them; the others in _solve_point
+V_LG, V_LOGC, V_C, V_DISSOLVED, V_Z, V_XL, V_COLD = (
+    0,
+    1,
+    2,
+    8,
+    18,
+    19,
+    23,
+)  # V_COLD: three rows for _cold_start
+VEC_ROWS, IVEC_ROWS, MAT_COUNT = 26, 8, 4
+I_ALL, I_PIN = 3, 5
 
 
 @njit(cache=True, fastmath=FAST, _nrt=False)
@@ -118,7 +131,7 @@ def _log_gamma(z, ionic, davies_a, ideal, lg):
         lg[i] = -davies_a * z[i] * z[i] * d
 
 
-@njit(cache=True, fastmath=FAST, _nrt=False)
+@njit(cache=True, fastmath=FAST, _nrt=False, inline="always")
 def _concentrations(log_k, a_ptr, a_col, a_val, x, lg, comp_species, logc, c, xl):
     """log10 and concentration of every species. A species below 1e-290 mol/L is taken as zero (exp() is many
     times slower where its result underflows)."""
@@ -436,7 +449,7 @@ def _settled(
     return True
 
 
-@njit(cache=True, fastmath=FAST, _nrt=False)
+@njit(cache=True, fastmath=FAST, _nrt=False, inline="always")
 def _final(
     log_k,
     log_ks,
@@ -521,6 +534,90 @@ def _final(
     return ok, ionic_c, charge
 
 
+@njit(cache=True, fastmath=FAST, _nrt=False, inline="always")
+def _explicit(
+    log_k,
+    log_ks,
+    a_ptr,
+    a_col,
+    a_val,
+    b,
+    comp_species,
+    fixed,
+    ph,
+    t,
+    free,
+    possible,
+    x,
+    n_out,
+    active,
+    vec,
+    ivec,
+):
+    """A fixed-pH point with ideal activities whose present solids each fix one free concentration, and fix them
+    all (a metal hydroxide or oxide for each metal: its metal's free concentration follows from the pH), needs no
+    Newton step: the free concentrations follow from saturation, the solid amounts from the mass balances. Sets
+    them (concentrations in the kernel's working rows) and returns True if the result holds: no solid amount
+    below zero, no absent solid supersaturated; otherwise returns False, leaving x saturated as a start for
+    the Newton steps."""
+    m = x.size
+    n_so = b.shape[0]
+    n_sp = a_ptr.size - 1
+    pin = ivec[I_PIN, :m]  # the present solid fixing each free component
+    for j in range(m):
+        pin[j] = -1
+    for s in range(n_so):
+        if active[s]:
+            col = -1
+            for j in range(m):
+                if free[j] and b[s, j] != 0.0:
+                    if col >= 0:
+                        return False
+                    col = j
+            if col < 0 or pin[col] >= 0:
+                return False
+            pin[col] = s
+    for j in range(m):
+        if free[j] and pin[j] < 0:
+            return False
+    lg, logc, c, xl = vec[V_LG, :n_sp], vec[V_LOGC, :n_sp], vec[V_C, :n_sp], vec[V_XL, :m]
+    dissolved = vec[V_DISSOLVED, :m]
+    lg.fill(0.0)
+    if fixed:
+        x[0] = -ph
+    for j in range(m):
+        s = pin[j]
+        if s >= 0:
+            acc = log_ks[s]
+            for k in range(m):
+                if k != j and b[s, k] != 0.0:
+                    acc += b[s, k] * x[k]
+            x[j] = -acc / b[s, j]
+    _concentrations(log_k, a_ptr, a_col, a_val, x, lg, comp_species, logc, c, xl)
+    for j in range(m):
+        dissolved[j] = 0.0
+    for i in range(n_sp):
+        for q in range(a_ptr[i], a_ptr[i + 1]):
+            dissolved[a_col[q]] += a_val[q] * c[i]
+    for s in range(n_so):
+        n_out[s] = 0.0
+    for j in range(m):
+        s = pin[j]
+        if s >= 0:
+            n_out[s] = (t[j] - dissolved[j]) / b[s, j]
+            if not (n_out[s] >= 0.0):
+                return False
+    for s in range(n_so):
+        if possible[s] and not active[s]:
+            acc = log_ks[s]
+            for j in range(m):
+                if b[s, j] != 0.0:
+                    acc += b[s, j] * x[j]
+            if acc > TOL_SATURATION:
+                return False
+    return True
+
+
 @njit(cache=True, fastmath=FAST, _nrt=False)
 def _solve_point(
     log_k,
@@ -545,9 +642,9 @@ def _solve_point(
     ionic0,
     max_ionic,
     warm,
-    work,
-    work2,
-    work3,
+    vec,
+    ivec,
+    mat,
     stats,
 ):
     """Solve one point from the given x, active set and ionic strength. Returns (ok, ionic).
@@ -561,9 +658,18 @@ def _solve_point(
     n_sp = a_ptr.size - 1
     m = x.size
     n_so = b.shape[0]
-    lg, logc, c, logc_t, c_t, si, dissolved, sumabs, scale, x0, dx, jac, kkt, rhs, mass_rhs = work
-    n_act, gram, y_buf, free_idx, row_of, act, all_s, cols, pin_col, keep_row, keep_col, red, red_rhs = work2
-    dlg_comp, col_sq, col_z, g_col, z_comp, xl, sol = work3
+    big = m + n_so + 1
+    # views of the packed working arrays (buffers)
+    lg, logc, c = vec[V_LG, :n_sp], vec[V_LOGC, :n_sp], vec[V_C, :n_sp]
+    logc_t, c_t = vec[3, :n_sp], vec[4, :n_sp]
+    si, n_act, y_buf = vec[5, :n_so], vec[6, :n_so], vec[7, :n_so]
+    dissolved, sumabs, scale, x0, dx = vec[V_DISSOLVED, :m], vec[9, :m], vec[10, :m], vec[11, :m], vec[12, :m]
+    mass_rhs, dlg_comp, col_sq, col_z, g_col = vec[13, :m], vec[14, :m], vec[15, :m], vec[16, :m], vec[17, :m]
+    z_comp, xl = vec[V_Z, :m], vec[V_XL, :m]
+    rhs, red_rhs, sol = vec[20, :big], vec[21, :big], vec[22, :big]
+    free_idx, row_of, act, all_s = ivec[0, :m], ivec[1, :m], ivec[2, :n_so], ivec[I_ALL, :n_so]
+    cols, pin_col, keep_row, keep_col = ivec[4, :big], ivec[I_PIN, :n_so], ivec[6, :big], ivec[7, :big]
+    jac, kkt, gram, red = mat[0], mat[1], mat[2], mat[3]
     f = 0
     for j in range(m):
         row_of[j] = -1
@@ -622,10 +728,13 @@ def _solve_point(
                 dlg_comp[j] = 0.0 if (fixed and j == 0) else -davies_a * z_comp[j] * z_comp[j] * d_davies
         dissolved.fill(0.0)
         sumabs.fill(0.0)
-        jac.fill(0.0)
-        col_sq.fill(0.0)
-        col_z.fill(0.0)
-        g_col.fill(0.0)
+        for j in range(m):
+            for q in range(m):
+                jac[j, q] = 0.0
+        if joint:
+            col_sq.fill(0.0)
+            col_z.fill(0.0)
+            g_col.fill(0.0)
         ionic_sq = 0.0
         charge = 0.0
         du_sq = 0.0
@@ -910,11 +1019,11 @@ def solve_points(
     state for developers measuring the kernel)."""
     n_sp, m = a.shape
     n_so = b.shape[0]
-    work, work2, work3 = buffers
-    z_comp = work3[4]
+    vec, ivec, mat = buffers
+    z_comp = vec[V_Z, :m]
     for j in range(m):
         z_comp[j] = z[comp_species[j]]
-    all_s = work2[6]
+    all_s = ivec[I_ALL, :n_so]
     for s in range(n_so):
         all_s[s] = s
     per_k = log_k.shape[0] > 1
@@ -987,16 +1096,49 @@ def solve_points(
                             for j in range(m):
                                 if free[p, j]:
                                     x[p, j] = x[prev, j] + ratio * (x[prev, j] - x[prev2, j])
-                            ionic[p] = ionic[prev] * (ionic[prev] / ionic[prev2]) ** ratio
-            # from the warm start, if any; then, if that fails, cold
-            good = False
+                            if not ideal:
+                                ionic[p] = ionic[prev] * (ionic[prev] / ionic[prev2]) ** ratio
+            # explicit (ideal activities); else from the warm start, if any; then, if that fails, cold
+            good = (
+                warm
+                and ideal
+                and _explicit(
+                    lk,
+                    lks,
+                    a_ptr,
+                    a_col,
+                    a_val,
+                    b,
+                    comp_species,
+                    fixed,
+                    ph[p],
+                    t[p],
+                    free[p],
+                    possible[p],
+                    x[p],
+                    n_out[p],
+                    active[p],
+                    vec,
+                    ivec,
+                )
+            )
             for cold in (False, True):
                 if good or (not cold and not warm):
                     continue
                 if cold:
                     start_ph = ph[p] if fixed else ph_guess[p]
                     ionic[p] = _cold_start(
-                        lk, a, log_a, t[p], present[p], start_ph, x[p], z_comp, work[9], work[3], work[10]
+                        lk,
+                        a,
+                        log_a,
+                        t[p],
+                        present[p],
+                        start_ph,
+                        x[p],
+                        z_comp,
+                        vec[V_COLD],
+                        vec[V_COLD + 1],
+                        vec[V_COLD + 2],
                     )
                     for s in range(n_so):
                         active[p, s] = False
@@ -1023,9 +1165,9 @@ def solve_points(
                     ionic[p],
                     max_ionic,
                     not cold,
-                    work,
-                    work2,
-                    work3,
+                    vec,
+                    ivec,
+                    mat,
                     stats[p],
                 )
             if good:
@@ -1050,8 +1192,8 @@ def solve_points(
                     n_out[p],
                     active[p],
                     ionic[p],
-                    work[2],
-                    work[0],
+                    vec[V_C, :n_sp],
+                    vec[V_LG, :n_sp],
                     conc[p],
                     lg_out[p],
                     si_out[p],
@@ -1067,9 +1209,18 @@ CHUNKS_ARGUMENT = list(inspect.signature(getattr(solve_points, "py_func", solve_
 )
 
 
+_CORES: list = []
+
+
 def threads() -> int:
-    """Threads the kernel may use: the cores this process may run on."""
-    return max(1, len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (os.cpu_count() or 1))
+    """Threads the kernel may use: the cores this process may run on (looked up once per process)."""
+    if not _CORES:
+        _CORES.append(
+            max(
+                1, len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (os.cpu_count() or 1)
+            )
+        )
+    return _CORES[0]
 
 
 _POOL: list = []
@@ -1077,50 +1228,56 @@ _POOL: list = []
 
 def _reset_pool() -> None:
     _POOL.clear()  # a forked child has none of its parent's threads: it makes its own pool when needed
+    _CORES.clear()  # nor, perhaps, its cores
 
 
 os.register_at_fork(after_in_child=_reset_pool)
 
 
 def buffers(n_species: int, n_components: int, n_solids: int) -> tuple:
-    """Working arrays for one chunk of solve_points (the kernel allocates nothing: it runs without numba's
-    reference counting, which in a per-point loop costs as much as the arithmetic, and more on two threads)."""
-    n_sp, m, n_so = n_species, n_components, n_solids
-    big = m + n_so + 1
-    work = tuple(np.empty(n_sp) for _ in range(5)) + (np.empty(n_so),) + tuple(np.empty(m) for _ in range(5))
-    work += (np.empty((m, m)), np.empty((big, big)), np.empty(big), np.empty(m))
-    work2 = (
-        np.zeros(n_so),
-        np.empty((n_so, n_so)),
-        np.empty(n_so),
-        np.empty(m, np.int64),
-        np.empty(m, np.int64),
-        np.empty(n_so, np.int64),
-        np.empty(n_so, np.int64),
-        np.empty(big, np.int64),
-        np.empty(n_so, np.int64),
-        np.empty(big, np.int64),
-        np.empty(big, np.int64),
-        np.empty((big, big)),
-        np.empty(big),
+    """Working arrays for one chunk of solve_points, packed in three arrays so that a call passes three arrays,
+    not thirty (the kernel allocates nothing: it runs without numba's reference counting, which in a per-point
+    loop costs as much as the arithmetic, and more on two threads): rows of floats and of integers, each long
+    enough for any vector of the system, and the square matrices (see _solve_point for which row is which)."""
+    big = n_components + n_solids + 1
+    width = max(n_species, big)
+    return (
+        np.zeros((VEC_ROWS, width)),
+        np.zeros((IVEC_ROWS, width), np.int64),
+        np.zeros((MAT_COUNT, big, big)),
     )
-    work3 = tuple(np.empty(m) for _ in range(6)) + (np.empty(big),)
-    return work, work2, work3
+
+
+_LOCAL = threading.local()
+
+
+def _own_buffers(sizes: tuple) -> tuple:
+    """This thread's working arrays for a system of these sizes, made once and kept (a thread runs one solve at
+    a time: the compiled kernel never calls back into Python)."""
+    kept = getattr(_LOCAL, "buffers", None)
+    if kept is None or len(kept) > 8:
+        kept = _LOCAL.buffers = {}
+    if sizes not in kept:
+        kept[sizes] = buffers(*sizes)
+    return kept[sizes]
+
+
+def _run(before: tuple, chunks: np.ndarray, after: tuple, sizes: tuple) -> None:
+    solve_points(*before, chunks, *after, _own_buffers(sizes))
 
 
 def run_chunks(args: tuple, chunks: np.ndarray, n_species: int, n_components: int, n_solids: int) -> None:
     """Run solve_points(*args[:chunk position], chunks, *rest, buffers) over the chunks, one chunk per thread
     (the compiled kernel releases the GIL); a single chunk runs in the calling thread."""
-    where = CHUNKS_ARGUMENT
+    before, after = args[:CHUNKS_ARGUMENT], args[CHUNKS_ARGUMENT:]
     sizes = (n_species, n_components, n_solids)
     if chunks.size <= 2:
-        solve_points(*args[:where], chunks, *args[where:], buffers(*sizes))
+        _run(before, chunks, after, sizes)
         return
     if not _POOL:
         _POOL.append(ThreadPoolExecutor(max_workers=threads(), thread_name_prefix="equilibrium"))
     jobs = [
-        _POOL[0].submit(solve_points, *args[:where], chunks[i : i + 2].copy(), *args[where:], buffers(*sizes))
-        for i in range(chunks.size - 1)
+        _POOL[0].submit(_run, before, chunks[i : i + 2].copy(), after, sizes) for i in range(chunks.size - 1)
     ]
     for job in jobs:
         job.result()

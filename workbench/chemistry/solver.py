@@ -171,9 +171,9 @@ def solve(
     fixed = ph is not None
     totals = np.atleast_2d(np.asarray(totals, dtype=float))
     n_pts = max(totals.shape[0], np.size(ph)) if fixed else totals.shape[0]
-    ph_arr = np.broadcast_to(np.asarray(ph, dtype=float), (n_pts,)).copy() if fixed else None
-    totals = np.broadcast_to(totals, (n_pts, len(tab.components))).copy()
-    guess = np.broadcast_to(np.asarray(ph_guess, float), (n_pts,))
+    ph_arr = _filled((n_pts,), ph) if fixed else None
+    totals = _filled((n_pts, len(tab.components)), totals)
+    guess = _filled((n_pts,), ph_guess)
     _limit_blas()
     if engine == "numpy":
         return _solve_numpy(tab, totals, ph_arr, activity, guess, log_k, log_ks, start).finish()
@@ -198,6 +198,13 @@ def solve(
             getattr(eq, name)[rest] = getattr(sub, name)
         eq.dissolved_totals[rest] = sub.dissolved()
     return eq
+
+
+def _filled(shape: tuple, value) -> np.ndarray:
+    """A new float array of this shape holding value, broadcast (raises as numpy does if it cannot be)."""
+    out = np.empty(shape)
+    out[...] = value
+    return out
 
 
 _ROW_FIELDS = (
@@ -250,7 +257,21 @@ def _solve_numpy(tab, totals, ph_arr, activity, guess, log_k, log_ks, start) -> 
 
 CONTINUATION_MIN_POINTS = 24
 KERNEL_MIN_CHUNK = 64  # fewer points per chunk than this are not worth a thread (each chunk starts cold)
-KERNEL_THREAD_WORK = 25_000  # points x (species + 20) below which one thread is faster than handing work to two
+# threads: a call whose estimated time on one thread is below KERNEL_THREAD_SECONDS runs on one (handing work to
+# a second thread costs about 0.2 ms on a 2-core laptop). The estimate is points x species x seconds per species
+# and point, measured on such a machine with `make bench`; it depends on the call alone, never on timings, so
+# that the same call is always split the same way and gives the same digits
+KERNEL_THREAD_SECONDS = 2e-3
+KERNEL_SPECIES_SECONDS = 2.5e-7  # Newton steps with Davies activities, or in charge-balance mode
+KERNEL_SPECIES_SECONDS_EXPLICIT = 4e-8  # fixed pH, ideal activities: most points need no Newton step
+
+
+def _kernel_rows(values, n_pts: int, width: int) -> np.ndarray:
+    """Constants as the kernel takes them: a C-ordered array of one row (the same at every point) or n_pts rows."""
+    arr = np.ascontiguousarray(values, dtype=float)
+    if arr.ndim == 1 or arr.shape[0] == 1:
+        return arr.reshape(1, width)
+    return np.ascontiguousarray(np.broadcast_to(arr, (n_pts, width)))
 
 
 def _continuation_plan(totals: np.ndarray, log_k: np.ndarray | None):
@@ -303,7 +324,9 @@ def _iterate(state: _State, todo: np.ndarray) -> None:
             state.restart(cold)
             continue
         changed = state.update_active_set(todo)
-        state.ionic_before[todo[changed]] = np.nan  # the solution kept before belongs to another set of solids
+        state.ionic_before[todo[changed]] = (
+            np.nan
+        )  # the solution kept before belongs to another set of solids
         moved = np.zeros_like(changed)
         state.remember(todo[~changed])
         moved[~changed] = state.update_ionic_strength(todo[~changed])
@@ -397,12 +420,16 @@ class _State:
     ):
         self.tab = tab
         n_all = totals.shape[0]
-        self.log_k = np.broadcast_to(
-            tab.log_k if log_k is None else np.asarray(log_k, float), (n_all, len(tab.species))
-        )
-        self.log_ks = np.broadcast_to(
-            tab.log_ks if log_ks is None else np.asarray(log_ks, float), (n_all, len(tab.solids))
-        )
+        if numpy_solver:
+            self.log_k = np.broadcast_to(
+                tab.log_k if log_k is None else np.asarray(log_k, float), (n_all, len(tab.species))
+            )
+            self.log_ks = np.broadcast_to(
+                tab.log_ks if log_ks is None else np.asarray(log_ks, float), (n_all, len(tab.solids))
+            )
+        else:  # the kernel's form: one row for all points, or a row per point
+            self.log_k = _kernel_rows(tab.log_k if log_k is None else log_k, n_all, len(tab.species))
+            self.log_ks = _kernel_rows(tab.log_ks if log_ks is None else log_ks, n_all, len(tab.solids))
         self.ph = ph
         self.ideal = activity == "ideal"
         n_pts, m = totals.shape
@@ -420,7 +447,7 @@ class _State:
         self.x = np.zeros((n_pts, m))
         self.n = np.zeros((n_pts, s))
         self.active = np.zeros((n_pts, s), bool)
-        self.ionic = np.full(n_pts, 1e-7)
+        self.ionic = _filled((n_pts,), 1e-7)
         if numpy_solver:  # the numpy solver's own bookkeeping (the kernel keeps its own)
             self.bracket = np.full((5, n_pts), np.nan)  # root search on log10 I (see update_ionic_strength)
             # the settled state before the last ionic-strength step (see halve_ionic_step)
@@ -430,12 +457,18 @@ class _State:
             self.halvings = np.zeros(n_pts, int)
             self.changes = np.zeros(n_pts, int)  # how often each point's set of solids has changed
             self.added = np.zeros((n_pts, s), bool)  # solids added at the last update
-            self.waiting = np.zeros((n_pts, s), int)  # passes a taken-back solid waits before it may enter again
+            self.waiting = np.zeros(
+                (n_pts, s), int
+            )  # passes a taken-back solid waits before it may enter again
             self.outer = LN10 * (tab.a[:, :, None] * tab.a[:, None, :]).reshape(len(tab.species), m * m)
         self.comp_species, self.weight, self.log_a = _tableau_arrays(tab)
         # a solid can only form at a point where all its components are present
-        needs = (np.abs(tab.b[:, 1:]) > 0).astype(float)  # (s, m-1): the components each solid contains
-        self.possible = ((~self.present[:, 1:]).astype(float) @ needs.T) == 0.0
+        needs = _per_tableau("needs", tab, lambda tab: (np.abs(tab.b[:, 1:]) > 0).astype(float).T)  # (m-1, s)
+        if (self.present == self.present[0]).all():  # the same components everywhere (a curve): one row
+            self.possible = np.empty((n_pts, s), bool)
+            self.possible[...] = ((~self.present[0, 1:]).astype(float) @ needs) == 0.0
+        else:
+            self.possible = ((~self.present[:, 1:]).astype(float) @ needs) == 0.0
 
     # ------------------------------------------------------------------ compiled fast path
     def kernel(self, use_start: bool, guess: np.ndarray) -> tuple[Equilibrium, np.ndarray]:
@@ -450,9 +483,13 @@ class _State:
             self.x[:, 1:] = np.where(self.present[:, 1:], 0.0, ABSENT)
         # threads pay only for enough work (points x species); with a start, chunks cost nothing extra and
         # several per thread balance the load; without, each chunk's first point starts cold: one per thread
-        threads = kernel.threads() if n_pts * (len(tab.species) + 20) >= KERNEL_THREAD_WORK else 1
+        per_species = (
+            KERNEL_SPECIES_SECONDS_EXPLICIT if self.ideal and self.ph is not None else KERNEL_SPECIES_SECONDS
+        )
+        heavy = n_pts * len(tab.species) * per_species >= KERNEL_THREAD_SECONDS
+        threads = kernel.threads() if heavy else 1
         per_chunk = max(KERNEL_MIN_CHUNK, -(-n_pts // (threads * (4 if use_start and threads > 1 else 1))))
-        chunks = np.append(np.arange(0, n_pts, per_chunk, dtype=np.int64), np.int64(n_pts))
+        chunks = np.array([*range(0, n_pts, per_chunk), n_pts], np.int64)
         ok = np.zeros(n_pts, bool)
         self.stats = np.zeros((n_pts, 3), np.int64)
         ionic_ceiling = np.inf if self.ideal else MAX_IONIC_STRENGTH
@@ -464,8 +501,8 @@ class _State:
         ionic = np.empty(n_pts)
         charge = np.empty(n_pts)
         args = (
-            np.ascontiguousarray(self.log_k if self.log_k.strides[0] else self.log_k[:1]),
-            np.ascontiguousarray(self.log_ks if self.log_ks.strides[0] else self.log_ks[:1]),
+            self.log_k,
+            self.log_ks,
             *_kernel_tableau(tab),
             self.ideal,
             self.ph is not None,
@@ -500,7 +537,7 @@ class _State:
             log_free=self.x,
             conc=conc,
             log_gamma=log_gamma,
-            solid_amount=np.where(self.active, self.n, 0.0),
+            solid_amount=self.n,  # the kernel sets absent solids' amounts to zero
             saturation_index=si,
             ionic_strength=ionic,
             ph=ph,
