@@ -61,15 +61,8 @@ UNDERFLOW_LOG = -290.0  # species below 10**this mol/L are taken as zero
 # fast-math flags without "nnan"/"ninf": the kernel tests for NaN and infinity
 FAST = {"reassoc", "contract", "arcp", "nsz", "afn"}
 # the packed working arrays (buffers): rows named where the solve_points loop uses them; the others in _solve_point
-V_LG, V_LOGC, V_C, V_DISSOLVED, V_Z, V_XL, V_COLD = (
-    0,
-    1,
-    2,
-    8,
-    18,
-    19,
-    23,
-)  # V_COLD: three rows for _cold_start
+V_LG, V_LOGC, V_C, V_DISSOLVED, V_Z, V_XL = 0, 1, 2, 8, 18, 19
+V_COLD = 23  # three rows for _cold_start
 VEC_ROWS, IVEC_ROWS, MAT_COUNT = 26, 8, 4
 I_ALL, I_PIN = 3, 5
 

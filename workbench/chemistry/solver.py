@@ -324,9 +324,8 @@ def _iterate(state: _State, todo: np.ndarray) -> None:
             state.restart(cold)
             continue
         changed = state.update_active_set(todo)
-        state.ionic_before[todo[changed]] = (
-            np.nan
-        )  # the solution kept before belongs to another set of solids
+        # the solution kept before belongs to another set of solids
+        state.ionic_before[todo[changed]] = np.nan
         moved = np.zeros_like(changed)
         state.remember(todo[~changed])
         moved[~changed] = state.update_ionic_strength(todo[~changed])
@@ -457,9 +456,8 @@ class _State:
             self.halvings = np.zeros(n_pts, int)
             self.changes = np.zeros(n_pts, int)  # how often each point's set of solids has changed
             self.added = np.zeros((n_pts, s), bool)  # solids added at the last update
-            self.waiting = np.zeros(
-                (n_pts, s), int
-            )  # passes a taken-back solid waits before it may enter again
+            # passes a taken-back solid waits before it may enter again
+            self.waiting = np.zeros((n_pts, s), int)
             self.outer = LN10 * (tab.a[:, :, None] * tab.a[:, None, :]).reshape(len(tab.species), m * m)
         self.comp_species, self.weight, self.log_a = _tableau_arrays(tab)
         # a solid can only form at a point where all its components are present
