@@ -7,7 +7,8 @@ from the two before (a curve along pH or dose is a continuation: two or three Ne
 given start moved as the point before moved from its own (Monte Carlo samples); only the first point of a chunk,
 or a point whose components differ from its neighbour's, starts cold. Near the solution the ionic strength is one
 more Newton unknown (u = log10 I, with G = log10 I(computed) - u = 0), and a present solid that fixes a single
-free concentration (a hydroxide at fixed pH) is eliminated before the LU.
+free concentration (a hydroxide at fixed pH) is eliminated before the LU. With ideal activities at fixed pH, a
+point whose solids fix every free concentration takes no Newton step at all (:func:`_explicit`).
 
 The kernel is kept simple on purpose: it adds one solid at a time and drops the most negative one, and whenever
 something does not go straight (Newton does not converge, a singular system, too many changes of the solids, an
@@ -16,7 +17,8 @@ False``). The numpy solver, with all its safeguards, then solves those points; e
 passes the same verification before it is returned.
 
 It runs without numba's reference counting (``_nrt=False``) and allocates nothing: the working arrays come from
-Python (:func:`buffers`), one set per chunk, and :func:`run_chunks` runs chunks on a thread per core.
+Python (:func:`buffers`, three packed arrays kept per thread), and :func:`run_chunks` runs chunks on a thread per
+core.
 """
 
 from __future__ import annotations

@@ -479,8 +479,8 @@ class _State:
         n_pts = self.x.shape[0]
         if not use_start:
             self.x[:, 1:] = np.where(self.present[:, 1:], 0.0, ABSENT)
-        # threads pay only for enough work (points x species); with a start, chunks cost nothing extra and
-        # several per thread balance the load; without, each chunk's first point starts cold: one per thread
+        # threads pay only for enough work (see KERNEL_THREAD_SECONDS); with a start, chunks cost nothing extra
+        # and several per thread balance the load; without, each chunk's first point starts cold: one per thread
         per_species = (
             KERNEL_SPECIES_SECONDS_EXPLICIT if self.ideal and self.ph is not None else KERNEL_SPECIES_SECONDS
         )
