@@ -200,6 +200,10 @@ def solve(
     return eq
 
 
+_NONE = np.empty(0, int)  # no points (read only)
+_NONE.flags.writeable = False
+
+
 def _filled(shape: tuple, value) -> np.ndarray:
     """A new float array of this shape holding value, broadcast (raises as numpy does if it cannot be)."""
     out = np.empty(shape)
@@ -462,7 +466,7 @@ class _State:
         self.comp_species, self.weight, self.log_a = _tableau_arrays(tab)
         # a solid can only form at a point where all its components are present
         needs = _per_tableau("needs", tab, lambda tab: (np.abs(tab.b[:, 1:]) > 0).astype(float).T)  # (m-1, s)
-        if (self.present == self.present[0]).all():  # the same components everywhere (a curve): one row
+        if self.present.all() or (self.present == self.present[0]).all():  # the same everywhere (a curve)
             self.possible = np.empty((n_pts, s), bool)
             self.possible[...] = ((~self.present[0, 1:]).astype(float) @ needs) == 0.0
         else:
@@ -477,7 +481,7 @@ class _State:
 
         tab = self.tab
         n_pts = self.x.shape[0]
-        if not use_start:
+        if not use_start and not self.present.all():  # (x is zero where a component is present)
             self.x[:, 1:] = np.where(self.present[:, 1:], 0.0, ABSENT)
         # threads pay only for enough work (see KERNEL_THREAD_SECONDS); with a start, chunks cost nothing extra
         # and several per thread balance the load; without, each chunk's first point starts cold: one per thread
@@ -543,7 +547,7 @@ class _State:
             totals=self.t,
             dissolved_totals=dissolved,
         )
-        return eq, np.flatnonzero(~ok)
+        return eq, (_NONE if ok.all() else np.flatnonzero(~ok))
 
     # ------------------------------------------------------------------ pieces of the model
     def _lg(self, idx):
