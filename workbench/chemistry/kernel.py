@@ -23,6 +23,7 @@ core.
 
 from __future__ import annotations
 
+import functools
 import inspect
 import os
 import threading
@@ -62,11 +63,11 @@ MAX_CHANGES = 40  # changes of the solids per point
 UNDERFLOW_LOG = -290.0  # species below 10**this mol/L are taken as zero
 # fast-math flags without "nnan"/"ninf": the kernel tests for NaN and infinity
 FAST = {"reassoc", "contract", "arcp", "nsz", "afn"}
-# the packed working arrays (buffers): rows named where the solve_points loop uses them; the others in _solve_point
-V_LG, V_LOGC, V_C, V_DISSOLVED, V_Z, V_XL = 0, 1, 2, 8, 18, 19
+# the packed working arrays (buffers): rows named where more than one function uses them; the others in _solve_point
+V_LG, V_LOGC, V_C, V_SI, V_N_ACT, V_DISSOLVED, V_SUMABS, V_Z, V_XL = 0, 1, 2, 5, 6, 8, 9, 18, 19
 V_COLD = 23  # three rows for _cold_start
 VEC_ROWS, IVEC_ROWS, MAT_COUNT = 26, 8, 4
-I_ALL, I_PIN = 3, 5
+I_FREE, I_ACT, I_ALL, I_PIN = 0, 2, 3, 5
 
 
 @njit(cache=True, fastmath=FAST, _nrt=False)
@@ -388,26 +389,24 @@ def _settled(
     possible,
     x,
     active,
-    act,
     k_act,
-    n_act,
-    free_idx,
     f,
     ionic,
     max_ionic,
-    lg,
-    logc,
-    c,
-    si,
-    dissolved,
-    sumabs,
-    xl,
-    all_s,
+    vec,
+    ivec,
 ):
-    """Whether the point is solved as it stands: scaled mass residual below TOL_RESIDUAL with the given solid
-    amounts (all >= 0), present solids saturated, absent ones not supersaturated, |G| <= TOL_IONIC. Leaves the
-    pH held at the activity coefficients of the given ionic strength."""
+    """Whether the point is solved as it stands: scaled mass residual below TOL_RESIDUAL with the solid amounts
+    of the last Newton step (all >= 0), present solids saturated, absent ones not supersaturated, |G| <=
+    TOL_IONIC. Works in _solve_point's rows of the packed arrays; leaves the pH held at the activity coefficients
+    of the given ionic strength."""
     n_sp = a_ptr.size - 1
+    m = x.size
+    n_so = b.shape[0]
+    lg, logc, c, xl = vec[V_LG, :n_sp], vec[V_LOGC, :n_sp], vec[V_C, :n_sp], vec[V_XL, :m]
+    si, n_act = vec[V_SI, :n_so], vec[V_N_ACT, :n_so]
+    dissolved, sumabs = vec[V_DISSOLVED, :m], vec[V_SUMABS, :m]
+    free_idx, act, all_s = ivec[I_FREE, :m], ivec[I_ACT, :n_so], ivec[I_ALL, :n_so]
     _log_gamma(z, ionic, davies_a, ideal, lg)
     if fixed:
         x[0] = -ph - lg[comp_species[0]]
@@ -657,12 +656,13 @@ def _solve_point(
     # views of the packed working arrays (buffers)
     lg, logc, c = vec[V_LG, :n_sp], vec[V_LOGC, :n_sp], vec[V_C, :n_sp]
     logc_t, c_t = vec[3, :n_sp], vec[4, :n_sp]
-    si, n_act, y_buf = vec[5, :n_so], vec[6, :n_so], vec[7, :n_so]
-    dissolved, sumabs, scale, x0, dx = vec[V_DISSOLVED, :m], vec[9, :m], vec[10, :m], vec[11, :m], vec[12, :m]
+    si, n_act, y_buf = vec[V_SI, :n_so], vec[V_N_ACT, :n_so], vec[7, :n_so]
+    dissolved, sumabs = vec[V_DISSOLVED, :m], vec[V_SUMABS, :m]
+    scale, x0, dx = vec[10, :m], vec[11, :m], vec[12, :m]
     mass_rhs, dlg_comp, col_sq, col_z, g_col = vec[13, :m], vec[14, :m], vec[15, :m], vec[16, :m], vec[17, :m]
     z_comp, xl = vec[V_Z, :m], vec[V_XL, :m]
     rhs, red_rhs, sol = vec[20, :big], vec[21, :big], vec[22, :big]
-    free_idx, row_of, act, all_s = ivec[0, :m], ivec[1, :m], ivec[2, :n_so], ivec[I_ALL, :n_so]
+    free_idx, row_of, act, all_s = ivec[I_FREE, :m], ivec[1, :m], ivec[I_ACT, :n_so], ivec[I_ALL, :n_so]
     cols, pin_col, keep_row, keep_col = ivec[4, :big], ivec[I_PIN, :n_so], ivec[6, :big], ivec[7, :big]
     jac, kkt, gram, red = mat[0], mat[1], mat[2], mat[3]
     f = 0
@@ -939,21 +939,12 @@ def _solve_point(
                 possible,
                 x,
                 active,
-                act,
                 k_act,
-                n_act,
-                free_idx,
                 f,
                 ionic,
                 max_ionic,
-                lg,
-                logc,
-                c,
-                si,
-                dissolved,
-                sumabs,
-                xl,
-                all_s,
+                vec,
+                ivec,
             ):
                 break
     else:
@@ -1204,18 +1195,10 @@ CHUNKS_ARGUMENT = list(inspect.signature(getattr(solve_points, "py_func", solve_
 )
 
 
-_CORES: list = []
-
-
+@functools.cache
 def threads() -> int:
     """Threads the kernel may use: the cores this process may run on (looked up once per process)."""
-    if not _CORES:
-        _CORES.append(
-            max(
-                1, len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (os.cpu_count() or 1)
-            )
-        )
-    return _CORES[0]
+    return max(1, len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (os.cpu_count() or 1))
 
 
 _POOL: list = []
@@ -1223,7 +1206,7 @@ _POOL: list = []
 
 def _reset_pool() -> None:
     _POOL.clear()  # a forked child has none of its parent's threads: it makes its own pool when needed
-    _CORES.clear()  # nor, perhaps, its cores
+    threads.cache_clear()  # nor, perhaps, its cores
 
 
 os.register_at_fork(after_in_child=_reset_pool)
