@@ -15,9 +15,10 @@ from dataclasses import replace
 
 import numpy as np
 import pytest
+from numba import njit
 
 from tests.benchmarks.__main__ import mixed_water as benchmark_water
-from workbench.chemistry import solver, tableau
+from workbench.chemistry import kernel, solver, tableau
 from workbench.errors import ModelRangeError
 from workbench.treatment.dose import dose_curve
 from workbench.treatment.solubility import equilibrium
@@ -49,6 +50,26 @@ def assert_same(fast, ref):
     scale = np.maximum(np.abs(ref.solid_amount), 1e-300)
     present = ref.solid_amount > 1e-14
     assert (np.abs(fast.solid_amount - ref.solid_amount)[present] / scale[present]).max(initial=0.0) < 1e-6
+
+
+@njit(fastmath=kernel.FAST)
+def _exp10_loop(y, out):
+    for i in range(y.size):  # as in the kernel: a loop compiled with its fast-math flags
+        out[i] = kernel._exp10(y[i])
+
+
+def test_kernel_power_of_ten_agrees_with_numpy_to_one_ulp():
+    """The kernel's own 10**y (kernel._exp10, vectorisable) against numpy's power over the whole range the kernel
+    uses (-290 to 300), and exactly at the integers, where 10**y is exact in numpy for 0 <= y <= 22."""
+    rng = np.random.default_rng(7)
+    y = np.concatenate([rng.uniform(-300.0, 300.0, 200_000), rng.uniform(-1.0, 1.0, 20_000), np.arange(-300.0, 301.0)])
+    out = np.empty_like(y)
+    _exp10_loop(y, out)
+    reference = np.power(10.0, y)
+    assert np.max(np.abs(out / reference - 1.0)) <= 2.0 * np.finfo(float).eps
+    exact = np.arange(0.0, 23.0)
+    _exp10_loop(exact, out[: exact.size])
+    assert np.array_equal(out[: exact.size], np.power(10.0, exact))
 
 
 def test_mixed_water_residual_curve_matches_the_numpy_solver():
