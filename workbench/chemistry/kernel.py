@@ -63,6 +63,7 @@ MIN_STEP = 1e-6  # a line search that only finds a shorter step than this gives 
 NEIGHBOUR_PH = 0.5  # a given start yields to the point before only within this pH distance
 MAX_ITER = 300  # Newton steps per point, all changes of the solids and the ionic strength included
 MAX_CHANGES = 40  # changes of the solids per point
+EARLY_ADD_SI = 1e-3  # a start this supersaturated in an absent solid takes the solid in before any Newton step
 UNDERFLOW_LOG = -290.0  # species below 10**this mol/L are taken as zero
 # fast-math flags without "nnan"/"ninf": the kernel tests for NaN and infinity
 FAST = {"reassoc", "contract", "arcp", "nsz", "afn"}
@@ -1004,6 +1005,77 @@ def _solve_point(
     return True, ionic
 
 
+@njit(cache=True, fastmath=FAST, _nrt=False, inline="always")
+def _expected_solids(
+    log_ks,
+    b,
+    z,
+    comp_species,
+    weight,
+    davies_a,
+    ideal,
+    fixed,
+    ph,
+    possible,
+    x,
+    active,
+    n_out,
+    ionic,
+    p,
+    prev,
+    prev2,
+    vec,
+    ivec,
+):
+    """Before the Newton steps of a point started from its neighbour(s): change the set of solids where the start
+    already shows the change, so that the steps go to it at once instead of first converging on the old set. Drops
+    the present solid whose amount, extrapolated from the two points before, falls below zero soonest; adds the
+    absent solid most supersaturated at the start (SI above EARLY_ADD_SI, ranked by weight as in _solve_point).
+    One of each at most: the Newton steps make any further change, and check these."""
+    n_so = b.shape[0]
+    if prev2 >= 0:
+        s_p = ph[p] if fixed else float(p)
+        s_1 = ph[prev] if fixed else float(prev)
+        s_2 = ph[prev2] if fixed else float(prev2)
+        ratio = (s_p - s_1) / (s_1 - s_2) if s_1 != s_2 else 0.0
+        if ratio > 0.0 and ratio <= 2.0:
+            worst = -1
+            worst_v = 0.0
+            for s in range(n_so):
+                if active[p, s] and active[prev, s] and active[prev2, s] and n_out[prev, s] > 0.0:
+                    ahead = (n_out[prev, s] + ratio * (n_out[prev, s] - n_out[prev2, s])) / n_out[prev, s]
+                    if ahead < worst_v:
+                        worst_v = ahead
+                        worst = s
+            if worst >= 0:
+                active[p, worst] = False
+    # saturation of the absent solids at the start (activity coefficients of the components only)
+    m = x.size
+    xl = vec[V_XL, :m]
+    d = 0.0
+    if not ideal:
+        root = np.sqrt(ionic)
+        d = root / (1.0 + root) - DAVIES_LINEAR * ionic
+    for j in range(m):
+        zj = z[comp_species[j]]
+        xl[j] = x[j] - davies_a * zj * zj * d
+    if fixed:
+        xl[0] = -ph[p]
+    best = -1
+    best_v = -np.inf
+    for s in range(n_so):
+        if possible[s] and not active[p, s]:
+            si = log_ks[s]
+            for j in range(m):
+                if b[s, j] != 0.0:
+                    si += b[s, j] * xl[j]
+            if si > EARLY_ADD_SI and si / weight[s] > best_v:
+                best_v = si / weight[s]
+                best = s
+    if best >= 0:
+        active[p, best] = True
+
+
 @njit(cache=True, nogil=True, fastmath=FAST, _nrt=False)
 def solve_points(
     log_k,
@@ -1080,21 +1152,22 @@ def solve_points(
                 offset = use_start and same
                 if offset:
                     for s in range(n_so):
-                        if (
-                            active[p, s] != x_start_active[prev, s]
-                            or active[prev, s] != x_start_active[prev, s]
-                        ):
+                        if active[p, s] != x_start_active[prev, s]:
                             offset = False
                 if offset:
-                    # from the given start, moved as the point before moved from its own start (e.g. a Monte
-                    # Carlo sample along pH: the shift of its constants acts alike at neighbouring points)
-                    # (extrapolated linearly from the two points before where they share their solids)
+                    # from the given start, moved as the point before moved from its own start, with the
+                    # solids the point before ended with (e.g. a Monte Carlo sample along pH: the shift of its
+                    # constants acts alike at neighbouring points, and a solid it gained or lost stays so)
+                    # (extrapolated linearly from the two points before where they, and their starts, share
+                    # their solids)
+                    for s in range(n_so):
+                        active[p, s] = active[prev, s]
                     two = prev2 >= 0
                     if two:
                         for s in range(n_so):
                             if (
                                 active[prev2, s] != active[prev, s]
-                                or x_start_active[prev2, s] != active[prev, s]
+                                or x_start_active[prev2, s] != x_start_active[prev, s]
                             ):
                                 two = False
                     for j in range(m):
@@ -1132,7 +1205,8 @@ def solve_points(
                                     x[p, j] = x[prev, j] + ratio * (x[prev, j] - x[prev2, j])
                             if not ideal:
                                 ionic[p] = ionic[prev] * (ionic[prev] / ionic[prev2]) ** ratio
-            # explicit (ideal activities); else from the warm start, if any; then, if that fails, cold
+            # explicit (ideal activities); else from the warm start, if any, with the changes of solids it already
+            # shows; then, if that fails, cold
             good = (
                 warm
                 and ideal
@@ -1156,6 +1230,28 @@ def solve_points(
                     ivec,
                 )
             )
+            if warm and prev >= 0 and not good:
+                _expected_solids(
+                    lks,
+                    b,
+                    z,
+                    comp_species,
+                    weight,
+                    davies_a,
+                    ideal,
+                    fixed,
+                    ph,
+                    possible[p],
+                    x[p],
+                    active,
+                    n_out,
+                    ionic[p],
+                    p,
+                    prev,
+                    prev2,
+                    vec,
+                    ivec,
+                )
             for cold in (False, True):
                 if good or (not cold and not warm):
                     continue
