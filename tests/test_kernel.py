@@ -121,6 +121,31 @@ def test_points_fixed_by_their_solids_need_no_newton_step_and_match(monkeypatch)
     assert newton_steps[gone] > 0 and ph[gone] > 12.0
 
 
+def test_a_solid_whose_trend_shows_it_appearing_enters_before_the_newton_steps(monkeypatch):
+    """Zinc, Davies activities (no explicit path), pH 6 to 14: at the point where zincite first appears, its
+    saturation index extrapolated from the two points before is positive, so the kernel takes it in at once: at most
+    three Newton steps there (converging on the old set first, then adding it, took six), and the same answer as
+    the numpy solver at every point."""
+    tab = tableau.build(("Zn^2+",), 25.0, "aged")
+    t = np.zeros(len(tab.components))
+    t[tab.component("Zn^2+")] = 1e-3
+    ph = np.linspace(6.0, 14.0, 401)
+    states = []
+    real = solver._State.kernel
+
+    def keep_state(self, *args):
+        states.append(self)
+        return real(self, *args)
+
+    monkeypatch.setattr(solver._State, "kernel", keep_state)
+    fast, ref = both(tab, t, ph, activity="davies")
+    assert_same(fast, ref)
+    present = (ref.solid_amount > 0).any(axis=1)
+    appears = np.flatnonzero(present)[0]
+    assert 6.5 < ph[appears] < 8.0 and not present[appears - 2 : appears].any()
+    assert states[0].stats[appears, 1] <= 3
+
+
 def test_lime_titration_in_charge_balance_mode_matches():
     water = mixed_water()
     doses = np.linspace(0.0, 800.0, 60)

@@ -5,7 +5,9 @@ concentrations, an active set of solids, Davies activity coefficients), written 
 compiled with numba. Each point starts from the solution of the point before it in the same chunk, extrapolated
 from the two before (a curve along pH or dose is a continuation: two or three Newton steps per point), or from a
 given start moved as the point before moved from its own (Monte Carlo samples); only the first point of a chunk,
-or a point whose components differ from its neighbour's, starts cold. Near the solution the ionic strength is one
+or a point whose components differ from its neighbour's, starts cold. Where the trend of the two points before
+shows a solid appearing or dissolving, the start takes that change of solids before any Newton step
+(:func:`_expected_solids`). Near the solution the ionic strength is one
 more Newton unknown (u = log10 I, with G = log10 I(computed) - u = 0), and a present solid that fixes a single
 free concentration (a hydroxide at fixed pH) is eliminated before the LU. With ideal activities at fixed pH, a
 point whose solids fix every free concentration takes no Newton step at all (:func:`_explicit`).
@@ -63,7 +65,7 @@ MIN_STEP = 1e-6  # a line search that only finds a shorter step than this gives 
 NEIGHBOUR_PH = 0.5  # a given start yields to the point before only within this pH distance
 MAX_ITER = 300  # Newton steps per point, all changes of the solids and the ionic strength included
 MAX_CHANGES = 40  # changes of the solids per point
-EARLY_ADD_SI = 1e-3  # a start this supersaturated in an absent solid takes the solid in before any Newton step
+EARLY_ADD_SI = 1e-3  # an absent solid whose SI, extrapolated to a point, exceeds this enters before any Newton step
 UNDERFLOW_LOG = -290.0  # species below 10**this mol/L are taken as zero
 # fast-math flags without "nnan"/"ninf": the kernel tests for NaN and infinity
 FAST = {"reassoc", "contract", "arcp", "nsz", "afn"}
@@ -1006,72 +1008,37 @@ def _solve_point(
 
 
 @njit(cache=True, fastmath=FAST, _nrt=False, inline="always")
-def _expected_solids(
-    log_ks,
-    b,
-    z,
-    comp_species,
-    weight,
-    davies_a,
-    ideal,
-    fixed,
-    ph,
-    possible,
-    x,
-    active,
-    n_out,
-    ionic,
-    p,
-    prev,
-    prev2,
-    vec,
-    ivec,
-):
-    """Before the Newton steps of a point started from its neighbour(s): change the set of solids where the start
-    already shows the change, so that the steps go to it at once instead of first converging on the old set. Drops
-    the present solid whose amount, extrapolated from the two points before, falls below zero soonest; adds the
-    absent solid most supersaturated at the start (SI above EARLY_ADD_SI, ranked by weight as in _solve_point).
-    One of each at most: the Newton steps make any further change, and check these."""
-    n_so = b.shape[0]
-    if prev2 >= 0:
-        s_p = ph[p] if fixed else float(p)
-        s_1 = ph[prev] if fixed else float(prev)
-        s_2 = ph[prev2] if fixed else float(prev2)
-        ratio = (s_p - s_1) / (s_1 - s_2) if s_1 != s_2 else 0.0
-        if ratio > 0.0 and ratio <= 2.0:
-            worst = -1
-            worst_v = 0.0
-            for s in range(n_so):
-                if active[p, s] and active[prev, s] and active[prev2, s] and n_out[prev, s] > 0.0:
-                    ahead = (n_out[prev, s] + ratio * (n_out[prev, s] - n_out[prev2, s])) / n_out[prev, s]
-                    if ahead < worst_v:
-                        worst_v = ahead
-                        worst = s
-            if worst >= 0:
-                active[p, worst] = False
-    # saturation of the absent solids at the start (activity coefficients of the components only)
-    m = x.size
-    xl = vec[V_XL, :m]
-    d = 0.0
-    if not ideal:
-        root = np.sqrt(ionic)
-        d = root / (1.0 + root) - DAVIES_LINEAR * ionic
-    for j in range(m):
-        zj = z[comp_species[j]]
-        xl[j] = x[j] - davies_a * zj * zj * d
-    if fixed:
-        xl[0] = -ph[p]
+def _expected_solids(weight, fixed, ph, possible, active, n_out, si_out, p, prev, prev2):
+    """Before the Newton steps of a point started from the two points before it: change the set of solids where
+    their trend already shows the change, so that the steps go to it at once instead of first converging on the
+    old set. Drops the present solid whose amount, extrapolated from the two points before, falls below zero
+    soonest; takes in the absent solid whose saturation index, extrapolated alike, rises highest above
+    EARLY_ADD_SI (ranked by weight as in _solve_point). One of each at most: the Newton steps make any further
+    change, and check these."""
+    n_so = active.shape[1]
+    s_p = ph[p] if fixed else float(p)
+    s_1 = ph[prev] if fixed else float(prev)
+    s_2 = ph[prev2] if fixed else float(prev2)
+    ratio = (s_p - s_1) / (s_1 - s_2) if s_1 != s_2 else 0.0
+    if not (ratio > 0.0 and ratio <= 2.0):
+        return
+    worst = -1
+    worst_v = 0.0
     best = -1
     best_v = -np.inf
     for s in range(n_so):
-        if possible[s] and not active[p, s]:
-            si = log_ks[s]
-            for j in range(m):
-                if b[s, j] != 0.0:
-                    si += b[s, j] * xl[j]
-            if si > EARLY_ADD_SI and si / weight[s] > best_v:
-                best_v = si / weight[s]
+        if active[p, s] and active[prev, s] and active[prev2, s] and n_out[prev, s] > 0.0:
+            ahead = (n_out[prev, s] + ratio * (n_out[prev, s] - n_out[prev2, s])) / n_out[prev, s]
+            if ahead < worst_v:
+                worst_v = ahead
+                worst = s
+        elif possible[s] and not active[p, s] and not active[prev, s] and not active[prev2, s]:
+            ahead = si_out[prev, s] + ratio * (si_out[prev, s] - si_out[prev2, s])
+            if ahead > EARLY_ADD_SI and ahead / weight[s] > best_v:
+                best_v = ahead / weight[s]
                 best = s
+    if worst >= 0:
+        active[p, worst] = False
     if best >= 0:
         active[p, best] = True
 
@@ -1230,28 +1197,8 @@ def solve_points(
                     ivec,
                 )
             )
-            if warm and prev >= 0 and not good:
-                _expected_solids(
-                    lks,
-                    b,
-                    z,
-                    comp_species,
-                    weight,
-                    davies_a,
-                    ideal,
-                    fixed,
-                    ph,
-                    possible[p],
-                    x[p],
-                    active,
-                    n_out,
-                    ionic[p],
-                    p,
-                    prev,
-                    prev2,
-                    vec,
-                    ivec,
-                )
+            if warm and prev2 >= 0 and not good:
+                _expected_solids(weight, fixed, ph, possible[p], active, n_out, si_out, p, prev, prev2)
             for cold in (False, True):
                 if good or (not cold and not warm):
                     continue
