@@ -62,7 +62,9 @@ def test_kernel_power_of_ten_agrees_with_numpy_to_one_ulp():
     """The kernel's own 10**y (kernel._exp10, vectorisable) against numpy's power over the whole range the kernel
     uses (-290 to 300), and exactly at the integers, where 10**y is exact in numpy for 0 <= y <= 22."""
     rng = np.random.default_rng(7)
-    y = np.concatenate([rng.uniform(-300.0, 300.0, 200_000), rng.uniform(-1.0, 1.0, 20_000), np.arange(-300.0, 301.0)])
+    y = np.concatenate(
+        [rng.uniform(-300.0, 300.0, 200_000), rng.uniform(-1.0, 1.0, 20_000), np.arange(-300.0, 301.0)]
+    )
     out = np.empty_like(y)
     _exp10_loop(y, out)
     reference = np.power(10.0, y)
@@ -70,6 +72,23 @@ def test_kernel_power_of_ten_agrees_with_numpy_to_one_ulp():
     exact = np.arange(0.0, 23.0)
     _exp10_loop(exact, out[: exact.size])
     assert np.array_equal(out[: exact.size], np.power(10.0, exact))
+
+
+def test_the_kernels_gathered_sums_rebuild_the_mass_balances_and_their_jacobian():
+    """The compressed columns and the Jacobian terms the kernel gathers from, on the mixed water's tableau: summed
+    for random concentrations they give A^T c and A^T diag(c) A (numpy, dense)."""
+    tab, _ = equilibrium(mixed_water(), np.array([7.0]))
+    a = np.asarray(tab.a, dtype=float)
+    c = np.random.default_rng(3).lognormal(-10.0, 3.0, a.shape[0])
+    ptr, species, coef = solver._by_component(a)
+    balances = [coef[ptr[j] : ptr[j + 1]] @ c[species[ptr[j] : ptr[j + 1]]] for j in range(a.shape[1])]
+    np.testing.assert_allclose(balances, a.T @ c, rtol=1e-13)
+    e_ptr, row, col, sp, weight = solver._jacobian_terms(a)
+    jac = np.zeros((a.shape[1], a.shape[1]))
+    for e in range(row.size):
+        terms = slice(e_ptr[e], e_ptr[e + 1])
+        jac[row[e], col[e]] = jac[col[e], row[e]] = weight[terms] @ c[sp[terms]]
+    np.testing.assert_allclose(jac, a.T @ (c[:, None] * a), rtol=1e-13, atol=1e-300)
 
 
 def test_mixed_water_residual_curve_matches_the_numpy_solver():

@@ -65,14 +65,16 @@ MIN_STEP = 1e-6  # a line search that only finds a shorter step than this gives 
 NEIGHBOUR_PH = 0.5  # a given start yields to the point before only within this pH distance
 MAX_ITER = 300  # Newton steps per point, all changes of the solids and the ionic strength included
 MAX_CHANGES = 40  # changes of the solids per point
-EARLY_ADD_SI = 1e-3  # an absent solid whose SI, extrapolated to a point, exceeds this enters before any Newton step
+# an absent solid whose SI, extrapolated to a point from the two before, exceeds this enters before Newton steps
+EARLY_ADD_SI = 1e-3
 UNDERFLOW_LOG = -290.0  # species below 10**this mol/L are taken as zero
 # fast-math flags without "nnan"/"ninf": the kernel tests for NaN and infinity
 FAST = {"reassoc", "contract", "arcp", "nsz", "afn"}
 # the packed working arrays (buffers): rows named where more than one function uses them; the others in _solve_point
 V_LG, V_LOGC, V_C, V_SI, V_N_ACT, V_DISSOLVED, V_SUMABS, V_Z, V_XL = 0, 1, 2, 5, 6, 8, 9, 18, 19
 V_COLD = 23  # three rows for _cold_start
-VEC_ROWS, IVEC_ROWS, MAT_COUNT = 26, 8, 4
+V_G_SP = 26
+VEC_ROWS, IVEC_ROWS, MAT_COUNT = 27, 8, 4
 I_FREE, I_ACT, I_ALL, I_PIN = 0, 2, 3, 5
 # 10**y in _exp10: log10(2) split so that k * LOG10_2_HI is exact (its last 32 bits are zero) for |k| < 2**20
 LOG10_2_HI = 0.30102992057800293
@@ -429,6 +431,7 @@ def _settled(
     a_ptr,
     a_col,
     a_val,
+    a_csc,
     b,
     z,
     comp_species,
@@ -462,12 +465,16 @@ def _settled(
     if fixed:
         x[0] = -ph - lg[comp_species[0]]
     _concentrations(log_k, a_ptr, a_col, a_val, x, lg, comp_species, logc, c, xl)
-    dissolved.fill(0.0)
-    sumabs.fill(0.0)
-    for i in range(n_sp):
-        for q in range(a_ptr[i], a_ptr[i + 1]):
-            dissolved[a_col[q]] += a_val[q] * c[i]
-            sumabs[a_col[q]] += abs(a_val[q]) * c[i]
+    c_ptr, c_sp, c_val = a_csc
+    for j in range(m):
+        acc = 0.0
+        acc_abs = 0.0
+        for q in range(c_ptr[j], c_ptr[j + 1]):
+            av = c_val[q] * c[c_sp[q]]
+            acc += av
+            acc_abs += abs(av)
+        dissolved[j] = acc
+        sumabs[j] = acc_abs
     for q in range(k_act):
         if n_act[q] < 0.0:
             return False
@@ -501,6 +508,7 @@ def _final(
     a_ptr,
     a_col,
     a_val,
+    a_csc,
     b,
     z,
     z_comp,
@@ -533,7 +541,12 @@ def _final(
     for i in range(n_sp):
         conc[i] = c_work[i]
         lg[i] = lg_work[i]
-    dissolved.fill(0.0)
+    c_ptr, c_sp, c_val = a_csc
+    for j in range(m):
+        acc = 0.0
+        for q in range(c_ptr[j], c_ptr[j + 1]):
+            acc += c_val[q] * conc[c_sp[q]]
+        dissolved[j] = acc
     charge = 0.0
     charge_scale = 0.0
     ionic_c = 0.0
@@ -541,8 +554,6 @@ def _final(
     for i in range(n_sp):
         if not np.isfinite(conc[i]):
             ok = False
-        for q in range(a_ptr[i], a_ptr[i + 1]):
-            dissolved[a_col[q]] += a_val[q] * conc[i]
         charge += z[i] * conc[i]
         charge_scale += abs(z[i]) * conc[i]
         ionic_c += 0.5 * z[i] * z[i] * conc[i]
@@ -586,6 +597,7 @@ def _explicit(
     a_ptr,
     a_col,
     a_val,
+    a_csc,
     b,
     comp_species,
     fixed,
@@ -639,11 +651,12 @@ def _explicit(
                     acc += b[s, k] * x[k]
             x[j] = -acc / b[s, j]
     _concentrations(log_k, a_ptr, a_col, a_val, x, lg, comp_species, logc, c, xl)
+    c_ptr, c_sp, c_val = a_csc
     for j in range(m):
-        dissolved[j] = 0.0
-    for i in range(n_sp):
-        for q in range(a_ptr[i], a_ptr[i + 1]):
-            dissolved[a_col[q]] += a_val[q] * c[i]
+        acc = 0.0
+        for q in range(c_ptr[j], c_ptr[j + 1]):
+            acc += c_val[q] * c[c_sp[q]]
+        dissolved[j] = acc
     for s in range(n_so):
         n_out[s] = 0.0
     for j in range(m):
@@ -670,6 +683,8 @@ def _solve_point(
     a_ptr,
     a_col,
     a_val,
+    a_csc,
+    jac_terms,
     b,
     z,
     comp_species,
@@ -706,7 +721,7 @@ def _solve_point(
     big = m + n_so + 1
     # views of the packed working arrays (buffers)
     lg, logc, c = vec[V_LG, :n_sp], vec[V_LOGC, :n_sp], vec[V_C, :n_sp]
-    logc_t, c_t = vec[3, :n_sp], vec[4, :n_sp]
+    logc_t, c_t, g_sp = vec[3, :n_sp], vec[4, :n_sp], vec[V_G_SP, :n_sp]
     si, n_act, y_buf = vec[V_SI, :n_so], vec[V_N_ACT, :n_so], vec[7, :n_so]
     dissolved, sumabs = vec[V_DISSOLVED, :m], vec[V_SUMABS, :m]
     scale, x0, dx = vec[10, :m], vec[11, :m], vec[12, :m]
@@ -762,55 +777,65 @@ def _solve_point(
                 for q in range(a_ptr[i], a_ptr[i + 1]):
                     if a_col[q] > 0 and t[a_col[q]] != 0.0 and logc[i] > log_big + FAR_START_LOG:
                         return False, ionic
-        # KKT system for [dX (free components), n (present solids), du], mass rows scaled. One pass over the
-        # species gathers the mass balances, their Jacobian and, with the ionic strength as an unknown, its
-        # column and row: d log10 gamma_i / du (Davies) and d log10 c_i / du at fixed X (with the pH held in
-        # fixed-pH mode: X_H + log10 gamma_H stays)
+        # KKT system for [dX (free components), n (present solids), du], mass rows scaled: the mass balances,
+        # their Jacobian and, with the ionic strength as an unknown, its column and row: d log10 gamma_i / du
+        # (Davies) and d log10 c_i / du at fixed X (with the pH held in fixed-pH mode: X_H + log10 gamma_H stays)
         size = f + k_act + (1 if joint else 0)
         if joint:
             root = np.sqrt(ionic)
             d_davies = (1.0 / (2.0 * root * (1.0 + root) ** 2) - DAVIES_LINEAR) * ionic * LN10
             for j in range(m):
                 dlg_comp[j] = 0.0 if (fixed and j == 0) else -davies_a * z_comp[j] * z_comp[j] * d_davies
-        dissolved.fill(0.0)
-        sumabs.fill(0.0)
-        for j in range(m):
-            for q in range(m):
-                jac[j, q] = 0.0
-        if joint:
-            col_sq.fill(0.0)
-            col_z.fill(0.0)
-            g_col.fill(0.0)
+        # the ionic strength's sums, and each species' d log10 c_i / du (joint step)
         ionic_sq = 0.0
         charge = 0.0
         du_sq = 0.0
         du_z = 0.0
-        for i in range(n_sp):
-            ci = c[i]
-            if ci == 0.0:
-                continue
-            gi = 0.0
-            if joint:
+        if joint:
+            for i in range(n_sp):
+                ci = c[i]
                 gi = davies_a * z[i] * z[i] * d_davies
                 for q in range(a_ptr[i], a_ptr[i + 1]):
                     gi += a_val[q] * dlg_comp[a_col[q]]
+                g_sp[i] = gi
                 zi = z[i]
                 ionic_sq += 0.5 * zi * zi * ci
                 charge += zi * ci
                 du_sq += 0.5 * zi * zi * ci * gi
                 du_z += zi * ci * gi
-            for q in range(a_ptr[i], a_ptr[i + 1]):
-                j = a_col[q]
-                av = a_val[q] * ci
-                dissolved[j] += av
-                sumabs[j] += abs(av)
-                lc = LN10 * av
-                for q2 in range(a_ptr[i], a_ptr[i + 1]):
-                    jac[j, a_col[q2]] += lc * a_val[q2]
+        # mass balances component by component, and the Jacobian entry by entry, each sum kept in a register
+        # (adding species by species into memory makes every addition wait for the one before)
+        c_ptr, c_sp, c_val = a_csc
+        for j in range(m):
+            acc = 0.0
+            acc_abs = 0.0
+            acc_g = 0.0
+            acc_sq = 0.0
+            acc_z = 0.0
+            for q in range(c_ptr[j], c_ptr[j + 1]):
+                i = c_sp[q]
+                av = c_val[q] * c[i]
+                acc += av
+                acc_abs += abs(av)
                 if joint:
-                    g_col[j] += av * gi
-                    col_sq[j] += 0.5 * z[i] * z[i] * av
-                    col_z[j] += z[i] * av
+                    acc_g += av * g_sp[i]
+                    acc_sq += 0.5 * z[i] * z[i] * av
+                    acc_z += z[i] * av
+            dissolved[j] = acc
+            sumabs[j] = acc_abs
+            g_col[j] = acc_g
+            col_sq[j] = acc_sq
+            col_z[j] = acc_z
+        e_ptr, e_row, e_col, e_sp, e_w = jac_terms
+        for j in range(m):
+            for q in range(m):
+                jac[j, q] = 0.0
+        for e in range(e_ptr.size - 1):
+            acc = 0.0
+            for q in range(e_ptr[e], e_ptr[e + 1]):
+                acc += e_w[q] * c[e_sp[q]]
+            jac[e_row[e], e_col[e]] = LN10 * acc
+            jac[e_col[e], e_row[e]] = LN10 * acc
         for r in range(size):
             rhs[r] = 0.0
             for q in range(size):
@@ -979,6 +1004,7 @@ def _solve_point(
                 a_ptr,
                 a_col,
                 a_val,
+                a_csc,
                 b,
                 z,
                 comp_species,
@@ -1051,6 +1077,8 @@ def solve_points(
     a_ptr,
     a_col,
     a_val,
+    a_csc,
+    jac_terms,
     log_a,
     b,
     z,
@@ -1183,6 +1211,7 @@ def solve_points(
                     a_ptr,
                     a_col,
                     a_val,
+                    a_csc,
                     b,
                     comp_species,
                     fixed,
@@ -1225,6 +1254,8 @@ def solve_points(
                     a_ptr,
                     a_col,
                     a_val,
+                    a_csc,
+                    jac_terms,
                     b,
                     z,
                     comp_species,
@@ -1254,6 +1285,7 @@ def solve_points(
                     a_ptr,
                     a_col,
                     a_val,
+                    a_csc,
                     b,
                     z,
                     z_comp,

@@ -398,6 +398,8 @@ def _kernel_arrays(tab: Tableau) -> tuple:
         np.searchsorted(nz_rows, np.arange(len(tab.species) + 1)).astype(np.int64),
         nz_cols.astype(np.int64),
         np.ascontiguousarray(tab.a[nz_rows, nz_cols], dtype=float),
+        _by_component(tab.a),
+        _jacobian_terms(tab.a),
         np.ascontiguousarray(log_a),
         np.ascontiguousarray(tab.b, dtype=float),
         np.ascontiguousarray(tab.z, dtype=float),
@@ -406,6 +408,30 @@ def _kernel_arrays(tab: Tableau) -> tuple:
         float(tab.davies_a),
     )
     return arrays
+
+
+def _by_component(a: np.ndarray) -> tuple:
+    """The stoichiometry as compressed columns: species q of component j for q in ptr[j]:ptr[j + 1], with its
+    coefficient (the kernel sums the mass balances component by component)."""
+    cols, rows = np.nonzero(a.T)
+    ptr = np.searchsorted(cols, np.arange(a.shape[1] + 1)).astype(np.int64)
+    return ptr, rows.astype(np.int64), np.ascontiguousarray(a[rows, cols], dtype=float)
+
+
+def _jacobian_terms(a: np.ndarray) -> tuple:
+    """The terms of the mass-balance Jacobian, sum_i a_ij a_ik c_i, entry by entry (j <= k, the Jacobian being
+    symmetric): entry e at row[e], col[e] sums weight[q] * c[species[q]] for q in ptr[e]:ptr[e + 1]. The kernel
+    gathers each entry in a register instead of adding every species into the matrix in memory."""
+    m = a.shape[1]
+    entries = [(j, k) for j in range(m) for k in range(j, m) if np.any((a[:, j] != 0) & (a[:, k] != 0))]
+    row = np.array([j for j, _ in entries], np.int64)
+    col = np.array([k for _, k in entries], np.int64)
+    species = [np.flatnonzero((a[:, j] != 0) & (a[:, k] != 0)) for j, k in entries]
+    ptr = np.concatenate([[0], np.cumsum([s.size for s in species])]).astype(np.int64)
+    sp = np.concatenate(species).astype(np.int64) if species else np.zeros(0, np.int64)
+    products = [a[s, j] * a[s, k] for s, (j, k) in zip(species, entries, strict=True)]
+    weight = np.concatenate(products) if products else np.zeros(0)
+    return ptr, row, col, sp, np.ascontiguousarray(weight, dtype=float)
 
 
 class _State:
