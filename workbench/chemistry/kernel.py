@@ -74,7 +74,9 @@ FAST = {"reassoc", "contract", "arcp", "nsz", "afn"}
 V_LG, V_LOGC, V_C, V_SI, V_N_ACT, V_DISSOLVED, V_SUMABS, V_Z, V_XL = 0, 1, 2, 5, 6, 8, 9, 18, 19
 V_COLD = 23  # three rows for _cold_start
 V_G_SP = 26
-VEC_ROWS, IVEC_ROWS, MAT_COUNT = 27, 8, 4
+# per species: d log10 c_i / du = davies_a * (d/du of the Davies term) * this row (solve_points sets it)
+V_W_DAVIES = 27
+VEC_ROWS, IVEC_ROWS, MAT_COUNT = 28, 8, 4
 I_FREE, I_ACT, I_ALL, I_PIN = 0, 2, 3, 5
 # 10**y in _exp10: log10(2) split so that k * LOG10_2_HI is exact (its last 32 bits are zero) for |k| < 2**20
 LOG10_2_HI = 0.30102992057800293
@@ -370,34 +372,29 @@ def _solve_kkt(kkt, rhs, size, f, k_act, cols, pin_col, keep_row, keep_col, red,
                 rhs[r] -= factor * rhs[r_s]
     # the rest: without the saturation rows and the pinned X, and without each pinned metal's mass row and its
     # solid's amount (that row is the only one holding it)
+    # (the same unknowns are kept as equations: keep_col lists them)
     for r in range(size):
         keep_row[r] = 1
-        keep_col[r] = 1
     for q in range(k_act):
         if pin_col[q] >= 0:
             keep_row[f + q] = 0
             keep_row[pin_col[q]] = 0
-            keep_col[pin_col[q]] = 0
-            keep_col[f + q] = 0
     sz = 0
     for r in range(size):
         if keep_row[r]:
-            cc = 0
-            for col in range(size):
-                if keep_col[col]:
-                    red[sz, cc] = kkt[r, col]
-                    cc += 1
-            red_rhs[sz] = rhs[r]
+            keep_col[sz] = r
             sz += 1
+    for r2 in range(sz):
+        r = keep_col[r2]
+        for c2 in range(sz):
+            red[r2, c2] = kkt[r, keep_col[c2]]
+        red_rhs[r2] = rhs[r]
     if not _lu_solve(red, red_rhs, sz, cols):
         return False
     for r in range(size):
         sol[r] = 0.0
-    cc = 0
-    for col in range(size):
-        if keep_col[col]:
-            sol[col] = red_rhs[cc]
-            cc += 1
+    for c2 in range(sz):
+        sol[keep_col[c2]] = red_rhs[c2]
     for q in range(k_act):
         c_m = pin_col[q]
         if c_m >= 0:
@@ -721,7 +718,7 @@ def _solve_point(
     big = m + n_so + 1
     # views of the packed working arrays (buffers)
     lg, logc, c = vec[V_LG, :n_sp], vec[V_LOGC, :n_sp], vec[V_C, :n_sp]
-    logc_t, c_t, g_sp = vec[3, :n_sp], vec[4, :n_sp], vec[V_G_SP, :n_sp]
+    logc_t, c_t, g_sp, w_davies = vec[3, :n_sp], vec[4, :n_sp], vec[V_G_SP, :n_sp], vec[V_W_DAVIES, :n_sp]
     si, n_act, y_buf = vec[V_SI, :n_so], vec[V_N_ACT, :n_so], vec[7, :n_so]
     dissolved, sumabs = vec[V_DISSOLVED, :m], vec[V_SUMABS, :m]
     scale, x0, dx = vec[10, :m], vec[11, :m], vec[12, :m]
@@ -792,11 +789,10 @@ def _solve_point(
         du_sq = 0.0
         du_z = 0.0
         if joint:
+            k_davies = davies_a * d_davies
             for i in range(n_sp):
                 ci = c[i]
-                gi = davies_a * z[i] * z[i] * d_davies
-                for q in range(a_ptr[i], a_ptr[i + 1]):
-                    gi += a_val[q] * dlg_comp[a_col[q]]
+                gi = k_davies * w_davies[i]
                 g_sp[i] = gi
                 zi = z[i]
                 ionic_sq += 0.5 * zi * zi * ci
@@ -1124,6 +1120,15 @@ def solve_points(
     z_comp = vec[V_Z, :m]
     for j in range(m):
         z_comp[j] = z[comp_species[j]]
+    # z_i^2 - sum_j a_ij z_j^2 (without the H+ component where the pH is held): the Davies term's weight in
+    # d log10 c_i / du at fixed X
+    w_davies = vec[V_W_DAVIES, :n_sp]
+    for i in range(n_sp):
+        acc = z[i] * z[i]
+        for q in range(a_ptr[i], a_ptr[i + 1]):
+            if not (fixed and a_col[q] == 0):
+                acc -= a_val[q] * z_comp[a_col[q]] * z_comp[a_col[q]]
+        w_davies[i] = acc
     all_s = ivec[I_ALL, :n_so]
     for s in range(n_so):
         all_s[s] = s
