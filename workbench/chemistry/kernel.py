@@ -771,9 +771,10 @@ def _solve_point(
         if it == 0:
             # a start far from this point's equilibrium: give it up (the caller starts cold)
             for i in range(n_sp):
-                for q in range(a_ptr[i], a_ptr[i + 1]):
-                    if a_col[q] > 0 and t[a_col[q]] != 0.0 and logc[i] > log_big + FAR_START_LOG:
-                        return False, ionic
+                if logc[i] > log_big + FAR_START_LOG:
+                    for q in range(a_ptr[i], a_ptr[i + 1]):
+                        if a_col[q] > 0 and t[a_col[q]] != 0.0:
+                            return False, ionic
         # KKT system for [dX (free components), n (present solids), du], mass rows scaled: the mass balances,
         # their Jacobian and, with the ionic strength as an unknown, its column and row: d log10 gamma_i / du
         # (Davies) and d log10 c_i / du at fixed X (with the pH held in fixed-pH mode: X_H + log10 gamma_H stays)
@@ -962,14 +963,16 @@ def _solve_point(
             x0[j] = x[j]
         phi0 = 0.0
         slope = 0.0
-        for i in range(n_sp):
-            phi0 += c[i]
-        phi0 /= LN10
-        for jj in range(f):
-            j = free_idx[jj]
-            phi0 -= t[j] * x[j]
-            slope += (dissolved[j] - t[j]) * dx[j]
-        if not joint and abs(slope) > 1e-10 * max(abs(phi0), 1e-300) and residual > NEAR_RESIDUAL:
+        far = not joint and residual > NEAR_RESIDUAL
+        if far:
+            for i in range(n_sp):
+                phi0 += c[i]
+            phi0 /= LN10
+            for jj in range(f):
+                j = free_idx[jj]
+                phi0 -= t[j] * x[j]
+                slope += (dissolved[j] - t[j]) * dx[j]
+        if far and abs(slope) > 1e-10 * max(abs(phi0), 1e-300):
             # far: line search on the objective at the present activity coefficients
             accepted = False
             for _ls in range(40):
