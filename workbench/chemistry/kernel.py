@@ -199,14 +199,14 @@ def _concentrations(log_k, a_ptr, a_col, a_val, x, lg, comp_species, logc, c, xl
 
 
 @njit(cache=True, fastmath=FAST, _nrt=False)
-def _saturation(log_ks, b, x, lg, comp_species, s_idx, k, out):
-    m = x.size
+def _saturation(log_ks, b_rows, x, lg, comp_species, s_idx, k, out):
+    b_ptr, b_col, b_val = b_rows
     for q in range(k):
         s = s_idx[q]
         acc = log_ks[s]
-        for j in range(m):
-            if b[s, j] != 0.0:
-                acc += b[s, j] * (x[j] + lg[comp_species[j]])
+        for e in range(b_ptr[s], b_ptr[s + 1]):
+            j = b_col[e]
+            acc += b_val[e] * (x[j] + lg[comp_species[j]])
         out[s] = acc
 
 
@@ -302,12 +302,12 @@ def _active_list(active, act):
 
 
 @njit(cache=True, fastmath=FAST, _nrt=False)
-def _restore(log_ks, b, x, lg, comp_species, act, k_act, free_idx, f, si, gram, y, cols):
+def _restore(log_ks, b, b_rows, x, lg, comp_species, act, k_act, free_idx, f, si, gram, y, cols):
     """Least-norm change of the free X that saturates every present solid exactly (the constraints are linear).
     Moving the pH (charge-balance mode) is a last resort (small weight). Returns False if singular."""
     if k_act == 0:
         return True
-    _saturation(log_ks, b, x, lg, comp_species, act, k_act, si)
+    _saturation(log_ks, b_rows, x, lg, comp_species, act, k_act, si)
     for r in range(k_act):
         y[r] = si[act[r]]
         for q in range(k_act):
@@ -429,6 +429,7 @@ def _settled(
     a_col,
     a_val,
     a_csc,
+    b_rows,
     b,
     z,
     comp_species,
@@ -472,17 +473,18 @@ def _settled(
             acc_abs += abs(av)
         dissolved[j] = acc
         sumabs[j] = acc_abs
+    b_ptr, b_col, b_val = b_rows
     for q in range(k_act):
         if n_act[q] < 0.0:
             return False
-        for jj in range(f):
-            j = free_idx[jj]
-            dissolved[j] += b[act[q], j] * n_act[q]
+        s = act[q]
+        for e in range(b_ptr[s], b_ptr[s + 1]):
+            dissolved[b_col[e]] += b_val[e] * n_act[q]  # (only the free components' balances are checked)
     for jj in range(f):
         j = free_idx[jj]
         if abs(t[j] - dissolved[j]) > TOL_RESIDUAL * max(max(abs(t[j]), sumabs[j]), 1e-300):
             return False
-    _saturation(log_ks, b, x, lg, comp_species, all_s, b.shape[0], si)
+    _saturation(log_ks, b_rows, x, lg, comp_species, all_s, b.shape[0], si)
     for s in range(b.shape[0]):
         if active[s]:
             if abs(si[s]) > TOL_SATURATION:
@@ -506,6 +508,7 @@ def _final(
     a_col,
     a_val,
     a_csc,
+    b_rows,
     b,
     z,
     z_comp,
@@ -557,11 +560,11 @@ def _final(
     if fixed:
         ionic_c += 0.5 * abs(charge)
     n_so = b.shape[0]
+    b_ptr, b_col, b_val = b_rows
     for s in range(n_so):
         acc = log_ks[s]
-        for j in range(m):
-            if b[s, j] != 0.0:
-                acc += b[s, j] * (x[j] + lg[comp_species[j]])
+        for e in range(b_ptr[s], b_ptr[s + 1]):
+            acc += b_val[e] * (x[b_col[e]] + lg[comp_species[b_col[e]]])
         si[s] = acc
         if active[s]:
             if abs(acc) > VERIFY_SATURATION or n_out[s] < 0.0:
@@ -682,6 +685,7 @@ def _solve_point(
     a_val,
     a_csc,
     jac_terms,
+    b_rows,
     b,
     z,
     comp_species,
@@ -764,7 +768,9 @@ def _solve_point(
             x[0] = -ph - lg[h_sp]
         if restore:
             stats[0] += 1
-            if not _restore(log_ks, b, x, lg, comp_species, act, k_act, free_idx, f, si, gram, y_buf, cols):
+            if not _restore(
+                log_ks, b, b_rows, x, lg, comp_species, act, k_act, free_idx, f, si, gram, y_buf, cols
+            ):
                 return False, ionic
             restore = False
         _concentrations(log_k, a_ptr, a_col, a_val, x, lg, comp_species, logc, c, xl)
@@ -842,13 +848,18 @@ def _solve_point(
             scale[j] = 1.0 / max(max(abs(t[j]), sumabs[j]), 1e-300)
             for q in range(f):
                 kkt[r, q] = jac[j, free_idx[q]] * scale[j]
-            for q in range(k_act):
-                kkt[r, f + q] = b[act[q], j] * scale[j]
-                kkt[f + q, r] = b[act[q], j]
             rhs[r] = (t[j] - dissolved[j]) * scale[j]
             mass_rhs[r] = rhs[r]
+        b_ptr, b_col, b_val = b_rows
+        for q in range(k_act):
+            s = act[q]
+            for e in range(b_ptr[s], b_ptr[s + 1]):
+                r = row_of[b_col[e]]
+                if r >= 0:
+                    kkt[r, f + q] = b_val[e] * scale[b_col[e]]
+                    kkt[f + q, r] = b_val[e]
         if k_act > 0:
-            _saturation(log_ks, b, x, lg, comp_species, act, k_act, si)
+            _saturation(log_ks, b_rows, x, lg, comp_species, act, k_act, si)
             for q in range(k_act):
                 rhs[f + q] = -si[act[q]]
         g_res = np.inf
@@ -872,22 +883,24 @@ def _solve_point(
                 kkt[col, r] = (col_sq[j] + sign * col_z[j]) / computed
             for q in range(k_act):
                 acc = 0.0
-                for j in range(m):
-                    if b[act[q], j] != 0.0:
-                        acc += b[act[q], j] * dlg_comp[j]
+                for e in range(b_ptr[act[q]], b_ptr[act[q] + 1]):
+                    acc += b_val[e] * dlg_comp[b_col[e]]
                 kkt[f + q, col] = acc
             kkt[col, col] = (du_sq + sign * du_z) / computed - 1.0
             rhs[col] = -g_res
         if not _solve_kkt(kkt, rhs, size, f, k_act, cols, pin_col, keep_row, keep_col, red, red_rhs, sol):
             return False, ionic
         du = rhs[f + k_act] if joint else 0.0
+        # mass rows' residual after the step: minus the solids' share (mass_rhs is not needed after this)
+        for q in range(k_act):
+            s = act[q]
+            for e in range(b_ptr[s], b_ptr[s + 1]):
+                r = row_of[b_col[e]]
+                if r >= 0:
+                    mass_rhs[r] -= b_val[e] * scale[b_col[e]] * rhs[f + q]
         residual = 0.0
         for r in range(f):
-            acc = mass_rhs[r]
-            j = free_idx[r]
-            for q in range(k_act):
-                acc -= b[act[q], j] * scale[j] * rhs[f + q]
-            residual = max(residual, abs(acc))
+            residual = max(residual, abs(mass_rhs[r]))
         step = abs(du)
         for r in range(f):
             step = max(step, abs(rhs[r]))
@@ -922,7 +935,7 @@ def _solve_point(
                 last_residual = np.inf
                 continue
         if near:
-            _saturation(log_ks, b, x, lg, comp_species, all_s, n_so, si)
+            _saturation(log_ks, b_rows, x, lg, comp_species, all_s, n_so, si)
             best = -1
             best_v = -np.inf
             threshold = TOL_SATURATION if converged else 1e-6
@@ -1004,6 +1017,7 @@ def _solve_point(
                 a_col,
                 a_val,
                 a_csc,
+                b_rows,
                 b,
                 z,
                 comp_species,
@@ -1078,6 +1092,7 @@ def solve_points(
     a_val,
     a_csc,
     jac_terms,
+    b_rows,
     log_a,
     b,
     z,
@@ -1264,6 +1279,7 @@ def solve_points(
                     a_val,
                     a_csc,
                     jac_terms,
+                    b_rows,
                     b,
                     z,
                     comp_species,
@@ -1294,6 +1310,7 @@ def solve_points(
                     a_col,
                     a_val,
                     a_csc,
+                    b_rows,
                     b,
                     z,
                     z_comp,

@@ -400,6 +400,7 @@ def _kernel_arrays(tab: Tableau) -> tuple:
         np.ascontiguousarray(tab.a[nz_rows, nz_cols], dtype=float),
         _by_component(tab.a),
         _jacobian_terms(tab.a),
+        _solid_rows(tab.b),
         np.ascontiguousarray(log_a),
         np.ascontiguousarray(tab.b, dtype=float),
         np.ascontiguousarray(tab.z, dtype=float),
@@ -416,6 +417,14 @@ def _by_component(a: np.ndarray) -> tuple:
     cols, rows = np.nonzero(a.T)
     ptr = np.searchsorted(cols, np.arange(a.shape[1] + 1)).astype(np.int64)
     return ptr, rows.astype(np.int64), np.ascontiguousarray(a[rows, cols], dtype=float)
+
+
+def _solid_rows(b: np.ndarray) -> tuple:
+    """The solids' stoichiometry as compressed rows: component col[q] with coefficient val[q] for q in
+    ptr[s]:ptr[s + 1] (a solid holds two or three of the components)."""
+    rows, cols = np.nonzero(b)
+    ptr = np.searchsorted(rows, np.arange(b.shape[0] + 1)).astype(np.int64)
+    return ptr, cols.astype(np.int64), np.ascontiguousarray(b[rows, cols], dtype=float)
 
 
 def _jacobian_terms(a: np.ndarray) -> tuple:
