@@ -686,6 +686,7 @@ def _solve_point(
     a_csc,
     jac_terms,
     b_rows,
+    a_row_max,
     b,
     z,
     comp_species,
@@ -964,13 +965,19 @@ def _solve_point(
             dx[free_idx[r]] = rhs[r]
         ceiling = log_big + 2.0
         lam = 1.0
+        # no species can rise by more than a_row_max * step: where that leaves every one below the ceiling (and
+        # within MAX_STEP_LOG), the full step stands without looking at each species
+        top = -np.inf
         for i in range(n_sp):
-            rise = 0.0
-            for q in range(a_ptr[i], a_ptr[i + 1]):
-                rise += a_val[q] * dx[a_col[q]]
-            if rise > 0.0:
-                room = ceiling - logc[i] if logc[i] < ceiling else MAX_STEP_LOG
-                lam = min(lam, room / rise)
+            top = max(top, logc[i])
+        if not (a_row_max * step < min(ceiling - top, MAX_STEP_LOG)):
+            for i in range(n_sp):
+                rise = 0.0
+                for q in range(a_ptr[i], a_ptr[i + 1]):
+                    rise += a_val[q] * dx[a_col[q]]
+                if rise > 0.0:
+                    room = ceiling - logc[i] if logc[i] < ceiling else MAX_STEP_LOG
+                    lam = min(lam, room / rise)
         lam = min(lam, 10.0 / max(step, 1e-300))
         for j in range(m):
             x0[j] = x[j]
@@ -1150,6 +1157,12 @@ def solve_points(
     all_s = ivec[I_ALL, :n_so]
     for s in range(n_so):
         all_s[s] = s
+    a_row_max = 0.0  # the largest sum of |coefficients| of a species (bounds a species' rise in a step)
+    for i in range(n_sp):
+        acc = 0.0
+        for q in range(a_ptr[i], a_ptr[i + 1]):
+            acc += abs(a_val[q])
+        a_row_max = max(a_row_max, acc)
     per_k = log_k.shape[0] > 1
     per_ks = log_ks.shape[0] > 1
     for ch in range(chunks.size - 1):
@@ -1280,6 +1293,7 @@ def solve_points(
                     a_csc,
                     jac_terms,
                     b_rows,
+                    a_row_max,
                     b,
                     z,
                     comp_species,
