@@ -40,7 +40,6 @@ test: install
 run: install
 	$(RUN) $(PY) -m workbench lab $(if $(PORT),--port $(PORT))
 
-# tests/benchmarks/__main__.py is written separately; until it exists this target fails with
-# "No module named tests.benchmarks".
+# the cases, their targets and how each is timed: tests/benchmarks/__main__.py
 bench: install
 	$(RUN) $(PY) -m tests.benchmarks
