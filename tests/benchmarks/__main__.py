@@ -248,7 +248,10 @@ def main(argv=None) -> int:
     rows += case_import(3)
     print(f"{'case':48s} {'time':>12s}  note")
     for name, seconds, note in rows:
-        shown = f"{seconds * 1e3:10.2f} ms" if seconds < 10 else f"{seconds:10.1f} s "
+        if seconds < 1e-4:
+            shown = f"{seconds * 1e6:10.2f} us"
+        else:
+            shown = f"{seconds * 1e3:10.2f} ms" if seconds < 10 else f"{seconds:10.1f} s "
         print(f"{name:48s} {shown}  {note}")
     return 0
 
