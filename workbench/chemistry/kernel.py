@@ -7,10 +7,12 @@ from the two before (a curve along pH or dose is a continuation: two or three Ne
 given start moved as the point before moved from its own (Monte Carlo samples); only the first point of a chunk,
 or a point whose components differ from its neighbour's, starts cold. Where the trend of the two points before
 shows a solid appearing or dissolving, the start takes that change of solids before any Newton step
-(:func:`_expected_solids`). Near the solution the ionic strength is one
-more Newton unknown (u = log10 I, with G = log10 I(computed) - u = 0), and a present solid that fixes a single
-free concentration (a hydroxide at fixed pH) is eliminated before the LU. With ideal activities at fixed pH, a
-point whose solids fix every free concentration takes no Newton step at all (:func:`_explicit`).
+(:func:`_expected_solids`). Near the solution the ionic strength is one more Newton unknown (u = log10 I, with
+G = log10 I(computed) - u = 0), and a present solid that fixes a single free concentration (a hydroxide at fixed
+pH) is eliminated before the LU. With ideal activities at fixed pH, a point whose solids fix every free
+concentration takes no Newton step at all (:func:`_explicit`). Sums over species are gathered per component and
+per Jacobian entry from lists made once per tableau (solver.py), and concentrations use a vectorisable 10**y
+(:func:`_exp10`).
 
 The kernel is kept simple on purpose: it adds one solid at a time and drops the most negative one, and whenever
 something does not go straight (Newton does not converge, a singular system, too many changes of the solids, an
