@@ -180,8 +180,10 @@ def test_lime_titration_in_charge_balance_mode_matches():
     np.testing.assert_allclose(fast["pH"].to_numpy(), ref["pH"].to_numpy(), rtol=0, atol=1e-8)
 
 
-def test_perturbed_constants_from_a_start_match():
-    """The Monte Carlo call: each point's constants shifted, starting from the nominal solution."""
+def test_perturbed_constants_from_a_start_match(monkeypatch):
+    """The Monte Carlo call: each point's constants shifted, starting from the nominal solution. The starts (the
+    sample's shift carried from the point before, with the solids it gained or lost) keep the Newton steps low:
+    3.7 per point on this call (4.3 before those starts)."""
     water = mixed_water()
     grid = np.linspace(4.0, 13.0, 91)  # (shifted constants can take pH 14 past the activity model's range)
     tab, nominal = equilibrium(water, grid)
@@ -190,8 +192,17 @@ def test_perturbed_constants_from_a_start_match():
     log_k = np.repeat(tab.log_k[None, :] + 0.3 * rng.standard_normal((k, tab.log_k.size)), grid.size, axis=0)
     log_ks = np.repeat(tab.log_ks[None, :] + 0.3 * rng.standard_normal((k, tab.log_ks.size)), grid.size, axis=0)
     start = solver.StartRows(nominal, np.tile(np.arange(grid.size), k))
+    states = []
+    real = solver._State.kernel
+
+    def keep_state(self, *args):
+        states.append(self)
+        return real(self, *args)
+
+    monkeypatch.setattr(solver._State, "kernel", keep_state)
     fast, ref = both(tab, start.totals, np.tile(grid, k), log_k=log_k, log_ks=log_ks, start=start)
     assert_same(fast, ref)
+    assert states[0].stats[:, 1].mean() < 4.0
 
 
 def test_points_the_kernel_gives_up_are_solved_by_the_numpy_solver(monkeypatch):
