@@ -32,6 +32,21 @@ def mixed_water(**changes):
     return replace(benchmark_water(), **changes)
 
 
+@pytest.fixture
+def kernel_states(monkeypatch):
+    """The solver's working states of the compiled-engine calls made in a test (their stats: Newton steps per
+    point and more), in call order."""
+    states = []
+    real = solver._State.kernel
+
+    def keep_state(self, *args):
+        states.append(self)
+        return real(self, *args)
+
+    monkeypatch.setattr(solver._State, "kernel", keep_state)
+    return states
+
+
 def both(tab, totals, ph=None, **kw):
     return (
         solver.solve(tab, totals, ph, engine="compiled", **kw),
@@ -111,7 +126,7 @@ def test_single_metal_ideal_matches():
     assert_same(*both(tab, t, np.linspace(6.0, 14.0, 500), activity="ideal"))
 
 
-def test_points_fixed_by_their_solids_need_no_newton_step_and_match(monkeypatch):
+def test_points_fixed_by_their_solids_need_no_newton_step_and_match(kernel_states):
     """Copper and zinc, ideal activities, pH 4 to 14: where both oxides are present every free concentration
     follows from the pH (no Newton step); the kernel must take that path there, leave it where a solid appears or
     dissolves (ZnO redissolves as zincate near pH 12.5), and agree with the numpy solver everywhere."""
@@ -120,17 +135,9 @@ def test_points_fixed_by_their_solids_need_no_newton_step_and_match(monkeypatch)
     t[tab.component("Cu^2+")] = 1e-4
     t[tab.component("Zn^2+")] = 1e-4
     ph = np.linspace(4.0, 14.0, 401)
-    states = []
-    real = solver._State.kernel
-
-    def keep_state(self, *args):
-        states.append(self)
-        return real(self, *args)
-
-    monkeypatch.setattr(solver._State, "kernel", keep_state)
     fast, ref = both(tab, t, ph, activity="ideal")
     assert_same(fast, ref)
-    newton_steps = states[0].stats[:, 1]
+    newton_steps = kernel_states[0].stats[:, 1]
     both_solids = (ref.solid_amount > 0).all(axis=1)
     first = np.flatnonzero(both_solids)[0]
     # past the first point with both solids, no Newton step while both stay; Newton steps where one dissolves
@@ -140,7 +147,7 @@ def test_points_fixed_by_their_solids_need_no_newton_step_and_match(monkeypatch)
     assert newton_steps[gone] > 0 and ph[gone] > 12.0
 
 
-def test_a_solid_whose_trend_shows_it_appearing_enters_before_the_newton_steps(monkeypatch):
+def test_a_solid_whose_trend_shows_it_appearing_enters_before_the_newton_steps(kernel_states):
     """Zinc, Davies activities (no explicit path), pH 6 to 14: at the point where zincite first appears, its
     saturation index extrapolated from the two points before is positive, so the kernel takes it in at once: at most
     three Newton steps there (converging on the old set first, then adding it, took six), and the same answer as
@@ -149,20 +156,12 @@ def test_a_solid_whose_trend_shows_it_appearing_enters_before_the_newton_steps(m
     t = np.zeros(len(tab.components))
     t[tab.component("Zn^2+")] = 1e-3
     ph = np.linspace(6.0, 14.0, 401)
-    states = []
-    real = solver._State.kernel
-
-    def keep_state(self, *args):
-        states.append(self)
-        return real(self, *args)
-
-    monkeypatch.setattr(solver._State, "kernel", keep_state)
     fast, ref = both(tab, t, ph, activity="davies")
     assert_same(fast, ref)
     present = (ref.solid_amount > 0).any(axis=1)
     appears = np.flatnonzero(present)[0]
     assert 6.5 < ph[appears] < 8.0 and not present[appears - 2 : appears].any()
-    assert states[0].stats[appears, 1] <= 3
+    assert kernel_states[0].stats[appears, 1] <= 3
 
 
 def test_lime_titration_in_charge_balance_mode_matches():
@@ -180,7 +179,7 @@ def test_lime_titration_in_charge_balance_mode_matches():
     np.testing.assert_allclose(fast["pH"].to_numpy(), ref["pH"].to_numpy(), rtol=0, atol=1e-8)
 
 
-def test_perturbed_constants_from_a_start_match(monkeypatch):
+def test_perturbed_constants_from_a_start_match(kernel_states):
     """The Monte Carlo call: each point's constants shifted, starting from the nominal solution. The starts (the
     sample's shift carried from the point before, with the solids it gained or lost) keep the Newton steps low:
     3.7 per point on this call (4.3 before those starts)."""
@@ -192,17 +191,10 @@ def test_perturbed_constants_from_a_start_match(monkeypatch):
     log_k = np.repeat(tab.log_k[None, :] + 0.3 * rng.standard_normal((k, tab.log_k.size)), grid.size, axis=0)
     log_ks = np.repeat(tab.log_ks[None, :] + 0.3 * rng.standard_normal((k, tab.log_ks.size)), grid.size, axis=0)
     start = solver.StartRows(nominal, np.tile(np.arange(grid.size), k))
-    states = []
-    real = solver._State.kernel
-
-    def keep_state(self, *args):
-        states.append(self)
-        return real(self, *args)
-
-    monkeypatch.setattr(solver._State, "kernel", keep_state)
+    before = len(kernel_states)  # (the nominal solve above may have been one)
     fast, ref = both(tab, start.totals, np.tile(grid, k), log_k=log_k, log_ks=log_ks, start=start)
     assert_same(fast, ref)
-    assert states[0].stats[:, 1].mean() < 4.0
+    assert kernel_states[before].stats[:, 1].mean() < 4.0
 
 
 def test_points_the_kernel_gives_up_are_solved_by_the_numpy_solver(monkeypatch):

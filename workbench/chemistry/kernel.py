@@ -200,6 +200,18 @@ def _concentrations(log_k, a_ptr, a_col, a_val, x, lg, comp_species, logc, c, xl
         c[i] = value if acc > UNDERFLOW_LOG else 0.0
 
 
+@njit(cache=True, fastmath=FAST, _nrt=False, inline="always")
+def _component_totals(a_csc, c, out):
+    """Dissolved total of each component, sum_i a_ij c_i, gathered component by component (a_csc: compressed
+    columns of the stoichiometry)."""
+    c_ptr, c_sp, c_val = a_csc
+    for j in range(out.size):
+        acc = 0.0
+        for q in range(c_ptr[j], c_ptr[j + 1]):
+            acc += c_val[q] * c[c_sp[q]]
+        out[j] = acc
+
+
 @njit(cache=True, fastmath=FAST, _nrt=False)
 def _saturation(log_ks, b_rows, x, lg, comp_species, s_idx, k, out):
     b_ptr, b_col, b_val = b_rows
@@ -543,12 +555,7 @@ def _final(
     for i in range(n_sp):
         conc[i] = c_work[i]
         lg[i] = lg_work[i]
-    c_ptr, c_sp, c_val = a_csc
-    for j in range(m):
-        acc = 0.0
-        for q in range(c_ptr[j], c_ptr[j + 1]):
-            acc += c_val[q] * conc[c_sp[q]]
-        dissolved[j] = acc
+    _component_totals(a_csc, conc, dissolved)
     charge = 0.0
     charge_scale = 0.0
     ionic_c = 0.0
@@ -653,12 +660,7 @@ def _explicit(
                     acc += b[s, k] * x[k]
             x[j] = -acc / b[s, j]
     _concentrations(log_k, a_ptr, a_col, a_val, x, lg, comp_species, logc, c, xl)
-    c_ptr, c_sp, c_val = a_csc
-    for j in range(m):
-        acc = 0.0
-        for q in range(c_ptr[j], c_ptr[j + 1]):
-            acc += c_val[q] * c[c_sp[q]]
-        dissolved[j] = acc
+    _component_totals(a_csc, c, dissolved)
     for s in range(n_so):
         n_out[s] = 0.0
     for j in range(m):
@@ -1056,6 +1058,16 @@ def _solve_point(
 
 
 @njit(cache=True, fastmath=FAST, _nrt=False, inline="always")
+def _step_ratio(fixed, ph, p, prev, prev2):
+    """Step from the point before to point p over the step from the one before that, along the curve (pH in
+    fixed-pH mode, the point's place in charge-balance mode); 0 where the two points before coincide."""
+    s_p = ph[p] if fixed else float(p)
+    s_1 = ph[prev] if fixed else float(prev)
+    s_2 = ph[prev2] if fixed else float(prev2)
+    return (s_p - s_1) / (s_1 - s_2) if s_1 != s_2 else 0.0
+
+
+@njit(cache=True, fastmath=FAST, _nrt=False, inline="always")
 def _expected_solids(weight, fixed, ph, possible, active, n_out, si_out, p, prev, prev2):
     """Before the Newton steps of a point started from the two points before it: change the set of solids where
     their trend already shows the change, so that the steps go to it at once instead of first converging on the
@@ -1064,10 +1076,7 @@ def _expected_solids(weight, fixed, ph, possible, active, n_out, si_out, p, prev
     EARLY_ADD_SI (ranked by weight as in _solve_point). One of each at most: the Newton steps make any further
     change, and check these."""
     n_so = active.shape[1]
-    s_p = ph[p] if fixed else float(p)
-    s_1 = ph[prev] if fixed else float(prev)
-    s_2 = ph[prev2] if fixed else float(prev2)
-    ratio = (s_p - s_1) / (s_1 - s_2) if s_1 != s_2 else 0.0
+    ratio = _step_ratio(fixed, ph, p, prev, prev2)
     if not (ratio > 0.0 and ratio <= 2.0):
         return
     worst = -1
@@ -1228,10 +1237,7 @@ def solve_points(
                         for s in range(n_so):
                             if active[prev2, s] != active[prev, s]:
                                 same = False
-                        s_p = ph[p] if fixed else float(p)
-                        s_1 = ph[prev] if fixed else float(prev)
-                        s_2 = ph[prev2] if fixed else float(prev2)
-                        ratio = (s_p - s_1) / (s_1 - s_2) if s_1 != s_2 else 0.0
+                        ratio = _step_ratio(fixed, ph, p, prev, prev2)
                         if same and ratio > 0.0 and ratio <= 2.0:
                             for j in range(m):
                                 if free[p, j]:
