@@ -4,10 +4,11 @@ Hypothesis draws waters with any subset of the metals (0 to 5,000 mg/L on a log 
 chloride, sodium, calcium, magnesium, fluoride up to 20,000 mg/L), ammonia, EDTA and citrate (up to 20,000 mg/L),
 alkalinity with or without a measured pH (0-14) and a temperature of 5-50 °C. Each water goes through
 ``residual_curve`` (a few drawn pH values and a fixed grid), ``speciate`` and the charge-balance solver. The only
-acceptable outcomes are a verified answer or a :class:`~workbench.ModelRangeError` (ionic strength beyond the
-activity model's range); an analysis whose alkalinity the measured pH cannot hold is refused by the Water
-itself with an ``InputError`` naming ``alkalinity_mg_l_caco3``. Never a ``ConvergenceError``, another exception,
-NaN or inf.
+acceptable outcomes are a verified answer (a curve stops where the model stops: points beyond the activity model's
+range at the ends of the pH range are left empty and named) or a :class:`~workbench.ModelRangeError` (ionic
+strength beyond the activity model's range at every point asked); an analysis whose alkalinity the measured pH
+cannot hold is refused by the Water itself with an ``InputError`` naming ``alkalinity_mg_l_caco3``. Never a
+``ConvergenceError``, another exception, NaN or inf.
 
 A verified answer is checked from the returned equilibrium itself (the solver is observed, not trusted): mass
 balance of every component to 1e-10 relative, species concentrations from the free concentrations by mass action,
@@ -237,7 +238,9 @@ def assert_dissolved_within_influent(water: wb.Water, dissolved: dict) -> None:
 
 # ---------------------------------------------------------------------------------------------- one call each
 def residual_curve_verified(water: wb.Water, ph: np.ndarray, counts: Counter):
-    """residual_curve: a verified curve (returned) or a refusal for ionic strength (None)."""
+    """residual_curve: a verified curve (returned), possibly stopped where the model stops (the points beyond the
+    activity model's range at the ends of the pH range are empty and named), or a refusal for ionic strength when
+    no point holds (None)."""
     with observed_solves() as calls:
         try:
             curve = wb.residual_curve(water, ph)
@@ -246,9 +249,18 @@ def residual_curve_verified(water: wb.Water, ph: np.ndarray, counts: Counter):
             counts["residual_curve refused: ionic strength"] += 1
             return None
     counts["residual_curve solved"] += 1
-    assert_one_verified_solve(calls, ph)
-    np.testing.assert_array_equal(curve.index.to_numpy(), np.atleast_1d(ph))
-    assert_dissolved_within_influent(water, {m: curve[m].to_numpy() for m in curve.columns})
+    ph = np.atleast_1d(ph)
+    np.testing.assert_array_equal(curve.index.to_numpy(), ph)
+    beyond = np.asarray(curve.attrs["beyond_model_ph"], float)
+    held = ~np.isin(ph, beyond)
+    if beyond.size:
+        counts["residual_curve stopped where the model stops"] += 1
+        # trimmed from the ends only: no point beyond the range lies between two points that hold
+        assert ((beyond > ph[held].max()) | (beyond < ph[held].min())).all(), (ph, beyond)
+        assert any("The curve stops" in w for w in curve.attrs["warnings"]), curve.attrs["warnings"]
+        assert curve[~held].isna().all().all()
+    assert_one_verified_solve(calls, ph[held])  # the tries before it were refused for ionic strength
+    assert_dissolved_within_influent(water, {m: curve[m].to_numpy()[held] for m in curve.columns})
     return curve
 
 
@@ -312,26 +324,29 @@ def scalar_and_array_agree(kwargs, ph, counts: Counter) -> None:
         sp = speciate_verified(water, p, counts)
         assert (one is None) == (sp is None), f"pH {p}: residual_curve and speciate disagree on refusing"
         refused.append(one is None)
-        if one is not None and curve is not None:
+        if one is not None and curve is not None and not np.isnan(curve.iloc[i].to_numpy()).any():
             row = curve.iloc[i].to_numpy()
             np.testing.assert_allclose(one.iloc[0].to_numpy(), row, rtol=1e-8, atol=0, err_msg=f"pH {p}")
             np.testing.assert_allclose(
                 sp.dissolved_mg_l.to_numpy(), row, rtol=1e-8, atol=0, err_msg=f"pH {p}"
             )
-    assert (curve is None) == any(refused), f"array refused: {curve is None}; points refused alone: {refused}"
+    empty = [True] * len(ph) if curve is None else list(np.isin(ph, curve.attrs["beyond_model_ph"]))
+    assert empty == refused, f"empty in the array: {empty}; points refused alone: {refused}"
     counts["compared"] += curve is not None
 
 
 def tiny_metals_stay_dissolved(kwargs, drawn_ph, counts: Counter) -> None:
-    """Metals far below the solubility of any of their solids: the residual is the influent at every pH."""
+    """Metals far below the solubility of any of their solids: the residual is the influent at every pH where the
+    model holds."""
     water = make_water(kwargs, counts)
     counts["waters"] += 1
     ph = np.array(list(drawn_ph) + list(GRID_PH))
     curve = residual_curve_verified(water, ph, counts)
     if curve is not None:
+        held = ~np.isin(ph, curve.attrs["beyond_model_ph"])
         for metal, influent in water.metals_mg_l.items():
             np.testing.assert_allclose(
-                curve[metal].to_numpy(), influent, rtol=TOL_INFLUENT, atol=0, err_msg=metal
+                curve[metal].to_numpy()[held], influent, rtol=TOL_INFLUENT, atol=0, err_msg=metal
             )
 
 

@@ -28,4 +28,11 @@ class ConvergenceError(ArithmeticError):
 
 class ModelRangeError(InputError):
     """The water lies outside the range where the chemistry model holds (e.g. ionic strength beyond the
-    activity model's limit); names the quantity, its value and the allowed range."""
+    activity model's limit); names the quantity, its value and the allowed range.
+
+    ``ph`` holds the pH values of the points found beyond the range (fixed-pH solves; empty otherwise), so that a
+    curve can stop where the model stops instead of being refused whole."""
+
+    def __init__(self, field: str, value: object, allowed: str, *, ph: tuple[float, ...] = ()):
+        super().__init__(field, value, allowed)
+        self.ph = tuple(float(v) for v in ph)

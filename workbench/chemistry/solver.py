@@ -1038,6 +1038,7 @@ class _State:
                 f"the Davies activity model is used up to {MAX_IONIC_STRENGTH} mol/L; this water exceeds it at "
                 f"{label} {', '.join(f'{v:.3g}' for v in np.asarray(where)[:8])} (too concentrated, or a pH too "
                 "extreme to hold with strong acid or base)",
+                ph=() if self.ph is None else tuple(np.asarray(where, float)),
             )
 
     # ------------------------------------------------------------------ result

@@ -20,7 +20,13 @@ from workbench.chemistry import database, solver, tableau
 from workbench.errors import InputError
 from workbench.treatment.cautions import cautions
 from workbench.treatment.limits import check_limits
-from workbench.treatment.solubility import check_ph_range, check_shift, equilibrium, model_warnings
+from workbench.treatment.solubility import (
+    check_ph_range,
+    check_shift,
+    equilibrium,
+    equilibrium_within_model,
+    model_warnings,
+)
 from workbench.treatment.uncertainty import UncertaintyBand, uncertainty_band
 from workbench.treatment.water import METALS, Water
 
@@ -146,9 +152,9 @@ def design_setpoint(
     metals = list(used.index)
     opts = dict(solids=solids, solubility_shift=solubility_shift)
     grid = np.round(np.arange(lo, hi + 1e-9, step), 6)
-    tab, eq = equilibrium(water, grid, **opts)
-    curve = _compared(water, tab, eq, tss)[metals]
-    curve.index = pd.Index(grid, name="pH")
+    tab, eq, reach = equilibrium_within_model(water, grid, **opts)
+    curve = _held_curve(_compared(water, tab, eq, tss)[metals], grid, reach)
+    hi = min(hi, float(grid[reach.held].max()))  # the two-stage search stays where the model holds
     windows, edges = _windows(curve, targets)
     compared = "dissolved" if tss is None else f"total (dissolved + carry-over at {tss:g} mg/L effluent TSS)"
     setpoint = _choose(windows, curve, targets, rule)
@@ -160,9 +166,8 @@ def design_setpoint(
         if stages is not None:
             table = _with_limits(stages[-1].pop("table"), used)
         else:
-            table = _table(
-                water, used, targets, float(curve.index[np.argmin((curve / targets).max(axis=1))]), tss, opts
-            )
+            closest = (curve / targets).max(axis=1, skipna=False).idxmin()  # held points only
+            table = _table(water, used, targets, float(closest), tss, opts)
             notes += _why_not_met(water, curve, targets, opts, lo, hi)
     notes += _complexant_notes(water, used, targets, tss, opts, windows, lo, hi, step)
     band = None
@@ -191,7 +196,7 @@ def design_setpoint(
         targets=targets,
         compared=compared,
         notes=notes,
-        warnings=model_warnings(water, tab, eq),
+        warnings=model_warnings(water, tab, eq) + ([reach.note(grid)] if not reach.complete else []),
         band=band,
     )
 
@@ -274,6 +279,13 @@ def _compared(water: Water, tab, eq, tss) -> pd.DataFrame:
     return pd.DataFrame(out)
 
 
+def _held_curve(values: pd.DataFrame, grid: np.ndarray, reach) -> pd.DataFrame:
+    """Values at the held points spread over the whole grid (NaN where the model does not hold), index pH."""
+    out = pd.DataFrame(np.nan, index=pd.Index(grid, name="pH"), columns=values.columns)
+    out.loc[grid[reach.held]] = values.to_numpy()
+    return out
+
+
 def _windows(curve: pd.DataFrame, targets: pd.Series) -> tuple[list, list]:
     ph = curve.index.to_numpy(float)
     with np.errstate(divide="ignore"):
@@ -312,7 +324,7 @@ def _choose(windows, curve, targets, rule):
         low, high = max(windows, key=lambda w: w[1] - w[0])
         return round(0.5 * (low + high), 2)
     headroom = -np.log10(np.maximum(curve.to_numpy(float), 1e-300) / targets.to_numpy(float)).max(axis=1)
-    return round(float(curve.index[int(np.argmax(headroom))]), 2)
+    return round(float(curve.index[int(np.nanargmax(headroom))]), 2)
 
 
 def _table(water, used, targets, ph, tss, opts) -> pd.DataFrame:
@@ -474,7 +486,7 @@ def _why_not_met(water, curve, targets, opts, lo, hi) -> list[str]:
 def _meets_without(water, fld, metal, target, opts, lo, hi) -> bool:
     bare = replace(water, **{fld: 0.0})
     grid = np.round(np.arange(lo, hi + 1e-9, 0.05), 4)
-    tab, eq = equilibrium(bare, grid, **opts)
+    tab, eq, _ = equilibrium_within_model(bare, grid, **opts)
     return bool((_compared(bare, tab, eq, None)[metal] <= target).any())
 
 
@@ -484,9 +496,8 @@ def _complexant_notes(water, used, targets, tss, opts, windows, lo, hi, step) ->
         return []
     bare = replace(water, **{fld: 0.0 for fld, _ in present})
     grid = np.round(np.arange(lo, hi + 1e-9, step), 6)
-    tab, eq = equilibrium(bare, grid, **opts)
-    curve = _compared(bare, tab, eq, tss)[list(used.index)]
-    curve.index = pd.Index(grid, name="pH")
+    tab, eq, reach = equilibrium_within_model(bare, grid, **opts)
+    curve = _held_curve(_compared(bare, tab, eq, tss)[list(used.index)], grid, reach)
     bare_windows, _ = _windows(curve, targets)
     names = " and ".join(name for _, name in present)
     width = sum(b - a for a, b in windows)

@@ -15,12 +15,15 @@ import numpy as np
 import pandas as pd
 
 from workbench.chemistry import database, solver, tableau
-from workbench.errors import InputError
+from workbench.errors import InputError, ModelRangeError
 from workbench.treatment.water import METALS, Water, as_array
 
 SOLID_CHOICES = tableau.SOLID_CHOICES
 DAVIES_LIMIT_MOL_L = 0.5  # upper ionic strength of the Davies equation's usual range (Davies 1962)
-DEFAULT_PH_RANGE = (4.0, 13.5)
+# pH range searched for minima by default: 4 to 12.5. Plants hold their precipitation pH below 12.5 (lime cannot
+# pass its ceiling of about 12.45 at 25 C, and at pH 12.5 or above a waste is corrosive under 40 CFR 261.22(a)(1));
+# every metal's minimum in the tables lies below it.
+DEFAULT_PH_RANGE = (4.0, 12.5)
 
 
 @dataclass
@@ -58,13 +61,23 @@ class SpeciationResult:
 
 def equilibrium(water: Water, ph, *, solids: str = "fresh", activity: str = "davies", solubility_shift=None):
     """Solve the water at the given pH values; returns (tableau, Equilibrium). Internal building block."""
+    _check_inputs(water, solids, activity)
+    ph = as_array(ph)
+    tab, t = _system(water, solids, solubility_shift)
+    return tab, solver.solve(tab, t, ph, activity=activity)
+
+
+def _check_inputs(water, solids, activity) -> None:
     if not isinstance(water, Water):
         raise InputError("water", type(water).__name__, "a workbench Water is required")
     if solids not in SOLID_CHOICES:
         raise InputError("solids", solids, f"allowed {', '.join(SOLID_CHOICES)}")
     if activity not in solver.ACTIVITY_MODELS:
         raise InputError("activity", activity, f"allowed {', '.join(solver.ACTIVITY_MODELS)}")
-    ph = as_array(ph)
+
+
+def _system(water: Water, solids: str, solubility_shift) -> tuple[tableau.Tableau, np.ndarray]:
+    """The water's tableau (with any solubility shift) and its component totals."""
     totals = water.totals()
     tab = tableau.build(tuple(totals), water.temperature_c, solids)
     for key, delta in check_shift(water, solubility_shift).items():
@@ -72,7 +85,93 @@ def equilibrium(water: Water, ph, *, solids: str = "fresh", activity: str = "dav
     t = np.zeros(len(tab.components))
     for comp, v in totals.items():
         t[tab.component(comp)] = v
-    return tab, solver.solve(tab, t, ph, activity=activity)
+    return tab, t
+
+
+@dataclass(frozen=True)
+class ModelReach:
+    """Which points of a pH curve lie within the range where the model holds.
+
+    Attributes
+    ----------
+    held : ndarray of bool
+        Per pH asked for (in the order given): True where the point was solved.
+    reason : str
+        Why the other points were left out ("" when every point holds).
+    """
+
+    held: np.ndarray
+    reason: str = ""
+
+    @property
+    def complete(self) -> bool:
+        return bool(self.held.all())
+
+    def note(self, ph: np.ndarray) -> str:
+        """One sentence for a result's warnings: from which pH the curve stops, and why ("" when complete)."""
+        if self.complete:
+            return ""
+        ph = np.asarray(ph, float)
+        kept = ph[self.held]
+        out = []
+        if (ph > kept.max()).any():
+            out.append(f"above pH {kept.max():g}")
+        if (ph < kept.min()).any():
+            out.append(f"below pH {kept.min():g}")
+        return (
+            f"The curve stops {' and '.join(out)}: {self.reason} Those points are left empty (NaN) and take no "
+            "part in minima, windows or setpoints."
+        )
+
+
+MAX_RANGE_CUTS = 8  # re-solves while trimming points beyond the model's range from the ends of a curve
+RANGE_PIVOT_PH = 7.0  # points beyond the range above this pH cut the curve's high end, below it the low end
+
+
+def equilibrium_within_model(
+    water: Water, ph, *, solids: str = "fresh", activity: str = "davies", solubility_shift=None
+):
+    """Like :func:`equilibrium`, but a curve stops where the model stops instead of being refused whole.
+
+    Points whose ionic strength lies beyond the activity model's range sit at the ends of a pH curve (it takes
+    more strong base, or acid, to hold a more extreme pH). They are trimmed from the end they lie on and the rest
+    is solved again. A water beyond the range at every pH is still refused (:class:`ModelRangeError`).
+
+    Returns
+    -------
+    (Tableau, Equilibrium, ModelReach)
+        The equilibrium holds the points ``ph[reach.held]``, in the order given.
+    """
+    _check_inputs(water, solids, activity)
+    ph = as_array(ph)
+    tab, t = _system(water, solids, solubility_shift)
+    held = np.ones(ph.size, bool)
+    reason = ""
+    for _ in range(MAX_RANGE_CUTS):
+        try:
+            return tab, solver.solve(tab, t, ph[held], activity=activity), ModelReach(held, reason)
+        except ModelRangeError as exc:
+            if not exc.ph:
+                raise
+            bad = np.asarray(exc.ph)
+            high, low = bad[bad >= RANGE_PIVOT_PH], bad[bad < RANGE_PIVOT_PH]
+            trimmed = held.copy()
+            if high.size:
+                trimmed &= ph < high.min()
+            if low.size:
+                trimmed &= ph > low.max()
+            if not trimmed.any() or (trimmed == held).all():
+                raise
+            held = trimmed
+            reason = (
+                f"beyond it the ionic strength would exceed {solver.MAX_IONIC_STRENGTH:g} mol/L, the range of the "
+                "Davies activity model (the strong base or acid that holds such a pH is itself too concentrated)."
+            )
+    raise ModelRangeError(
+        "ionic strength",
+        "beyond the activity model's range",
+        "the curve could not be trimmed to its valid part",
+    )
 
 
 MAX_SHIFT_LOG = 5.0
@@ -138,10 +237,17 @@ def residual_curve(
         ``attrs["warnings"]`` lists where the model is stretched.
     """
     phs = as_array(ph)
-    tab, eq = equilibrium(water, phs, solids=solids, activity=activity, solubility_shift=solubility_shift)
-    df = pd.DataFrame(metal_mg_l(water, tab, eq), index=pd.Index(phs, name="pH"))
+    tab, eq, reach = equilibrium_within_model(
+        water, phs, solids=solids, activity=activity, solubility_shift=solubility_shift
+    )
+    values = {}
+    for key, held_values in metal_mg_l(water, tab, eq).items():
+        values[key] = np.full(phs.size, np.nan)
+        values[key][reach.held] = held_values
+    df = pd.DataFrame(values, index=pd.Index(phs, name="pH"))
     df.attrs["units"] = "mg/L dissolved"
-    df.attrs["warnings"] = model_warnings(water, tab, eq)
+    df.attrs["warnings"] = model_warnings(water, tab, eq) + ([reach.note(phs)] if not reach.complete else [])
+    df.attrs["beyond_model_ph"] = phs[~reach.held].tolist()
     return df
 
 
@@ -239,23 +345,24 @@ def minimum_solubility(
     columns = ["ph_min", "residual_mg_l", "solid", "ph_low_2x", "ph_high_2x", "influent_mg_l", "note"]
     if not water.metals_mg_l:  # pure water or major ions only: nothing to report
         return pd.DataFrame(columns=columns, index=pd.Index([], name="metal"))
-    grid = np.round(np.arange(lo, hi + 1e-9, 0.05), 6)
+    full = np.round(np.arange(lo, hi + 1e-9, 0.05), 6)
     opts = dict(solids=solids, activity=activity, solubility_shift=solubility_shift)
-    tab, eq = equilibrium(water, grid, **opts)
+    tab, eq, reach = equilibrium_within_model(water, full, **opts)
+    grid = full[reach.held]  # the points where the model holds: a curve stops where the model stops
+    lo_held, hi_held = float(grid.min()), float(grid.max())
     coarse = metal_mg_l(water, tab, eq)
     metals = list(water.metals_mg_l)
     # refine around each metal's lowest grid point, all metals in one solve
     fine_ph, owner = [], []
     for k, key in enumerate(metals):
         i = int(np.argmin(coarse[key]))
-        pts = np.clip(grid[i] + np.arange(-0.05, 0.0501, 0.005), lo, hi)
+        pts = np.clip(grid[i] + np.arange(-0.05, 0.0501, 0.005), lo_held, hi_held)
         fine_ph.append(pts)
         owner.append(np.full(pts.size, k))
     fine_ph = np.concatenate(fine_ph)
     owner = np.concatenate(owner)
     tab_f, eq_f = equilibrium(water, fine_ph, **opts)
     fine = metal_mg_l(water, tab_f, eq_f)
-    data = database.load()
     rows = []
     for k, key in enumerate(metals):
         influent = water.metals_mg_l[key]
@@ -276,23 +383,15 @@ def minimum_solubility(
         note = ""
         if ph_min <= lo + 1e-9 or ph_min >= hi - 1e-9:
             note = f"lowest at the edge of the pH range searched ({lo:g}-{hi:g}): no minimum inside it"
+        elif ph_min <= lo_held + 1e-9 or ph_min >= hi_held - 1e-9:
+            note = (
+                f"lowest at the edge of the range where the model holds (pH {lo_held:g}-{hi_held:g}): "
+                "no minimum inside it"
+            )
         rows.append((key, ph_min, res_min, solid, low, high, influent, note))
-    del data
-    df = pd.DataFrame(
-        rows,
-        columns=[
-            "metal",
-            "ph_min",
-            "residual_mg_l",
-            "solid",
-            "ph_low_2x",
-            "ph_high_2x",
-            "influent_mg_l",
-            "note",
-        ],
-    )
-    df = df.set_index("metal")
-    df.attrs["warnings"] = model_warnings(water, tab, eq)
+    df = pd.DataFrame(rows, columns=["metal", *columns]).set_index("metal")
+    df.attrs["warnings"] = model_warnings(water, tab, eq) + ([reach.note(full)] if not reach.complete else [])
+    df.attrs["ph_range_held"] = (lo_held, hi_held)
     return df
 
 

@@ -20,7 +20,7 @@ import pandas as pd
 
 from workbench.chemistry import database, solver
 from workbench.errors import InputError
-from workbench.treatment.solubility import equilibrium, metal_mg_l
+from workbench.treatment.solubility import equilibrium_within_model, metal_mg_l
 from workbench.treatment.water import Water, as_array
 
 HELD_SOURCES = ("iapws_r11_07",)
@@ -136,7 +136,11 @@ def uncertainty_band(
     grid = as_array(ph)
     if setpoint_ph is not None:
         grid = np.unique(np.append(grid, as_array(setpoint_ph)))
-    tab, nominal_eq = equilibrium(water, grid, solids=solids, solubility_shift=solubility_shift)
+    asked = grid
+    tab, nominal_eq, reach = equilibrium_within_model(
+        water, asked, solids=solids, solubility_shift=solubility_shift
+    )
+    grid = asked[reach.held]  # the band stops where the model stops, as the curves do
     metals = list(water.metals_mg_l)
     nominal = pd.DataFrame(metal_mg_l(water, tab, nominal_eq), index=pd.Index(grid, name="pH"))[metals]
     data = database.load()
@@ -161,11 +165,12 @@ def uncertainty_band(
         if progress is not None:
             progress(stop, samples)
     qs = np.quantile(out, q, axis=0)
-    frames = [pd.DataFrame(qs[i], index=nominal.index, columns=metals) for i in range(3)]
+    whole = pd.Index(asked, name="pH")
+    frames = [pd.DataFrame(qs[i], index=nominal.index, columns=metals).reindex(whole) for i in range(3)]
     prob = None
     if limits is not None and not isinstance(limits, pd.Series):
         limits = pd.Series(dict(limits), dtype=float)
-    if limits is not None and setpoint_ph is not None:
+    if limits is not None and setpoint_ph is not None and np.isclose(grid, float(setpoint_ph)).any():
         i = int(np.flatnonzero(np.isclose(grid, float(setpoint_ph)))[0])
         prob = pd.Series(
             {
@@ -176,7 +181,7 @@ def uncertainty_band(
             name="probability_meets",
         )
     return UncertaintyBand(
-        nominal,
+        nominal.reindex(whole),
         frames[0],
         frames[1],
         frames[2],
