@@ -18,7 +18,7 @@ import pytest
 from numba import njit
 
 from tests.benchmarks.__main__ import mixed_water as benchmark_water
-from workbench.chemistry import kernel, solver, tableau
+from workbench.chemistry import equations, kernel, solver, tableau
 from workbench.errors import ModelRangeError
 from workbench.treatment.dose import dose_curve
 from workbench.treatment.solubility import equilibrium
@@ -34,16 +34,16 @@ def mixed_water(**changes):
 
 @pytest.fixture
 def kernel_states(monkeypatch):
-    """The solver's working states of the compiled-engine calls made in a test (their stats: Newton steps per
-    point and more), in call order."""
+    """The problems of the compiled-engine calls made in a test (their stats: Newton steps per point and more), in
+    call order."""
     states = []
-    real = solver._State.kernel
+    real = kernel.solve
 
-    def keep_state(self, *args):
-        states.append(self)
-        return real(self, *args)
+    def keep_state(problem, *args):
+        states.append(problem)
+        return real(problem, *args)
 
-    monkeypatch.setattr(solver._State, "kernel", keep_state)
+    monkeypatch.setattr(kernel, "solve", keep_state)
     return states
 
 
@@ -70,11 +70,11 @@ def assert_same(fast, ref):
 @njit(fastmath=kernel.FAST)
 def _exp10_loop(y, out):
     for i in range(y.size):  # as in the kernel: a loop compiled with its fast-math flags
-        out[i] = kernel._exp10(y[i])
+        out[i] = kernel.exp10(y[i])
 
 
 def test_kernel_power_of_ten_agrees_with_numpy_to_one_ulp():
-    """The kernel's own 10**y (kernel._exp10, vectorisable) against numpy's power over the whole range the kernel
+    """The kernel's own 10**y (kernel.exp10, vectorisable) against numpy's power over the whole range the kernel
     uses (-290 to 300), and exactly at the integers, where 10**y is exact in numpy for 0 <= y <= 22."""
     rng = np.random.default_rng(7)
     y = np.concatenate(
@@ -95,10 +95,10 @@ def test_the_kernels_gathered_sums_rebuild_the_mass_balances_and_their_jacobian(
     tab, _ = equilibrium(mixed_water(), np.array([7.0]))
     a = np.asarray(tab.a, dtype=float)
     c = np.random.default_rng(3).lognormal(-10.0, 3.0, a.shape[0])
-    ptr, species, coef = solver._by_component(a)
+    ptr, species, coef = equations.by_component(a)
     balances = [coef[ptr[j] : ptr[j + 1]] @ c[species[ptr[j] : ptr[j + 1]]] for j in range(a.shape[1])]
     np.testing.assert_allclose(balances, a.T @ c, rtol=1e-13)
-    e_ptr, row, col, sp, weight = solver._jacobian_terms(a)
+    e_ptr, row, col, sp, weight = equations.jacobian_terms(a)
     jac = np.zeros((a.shape[1], a.shape[1]))
     for e in range(row.size):
         terms = slice(e_ptr[e], e_ptr[e + 1])

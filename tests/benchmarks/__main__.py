@@ -236,7 +236,7 @@ def main(argv=None) -> int:
     parser.add_argument("--quick", action="store_true", help="fewer repeats and 100 Monte Carlo samples")
     args = parser.parse_args(argv)
     repeat = 3 if args.quick else 7
-    from workbench.chemistry.solver import _limit_blas  # noqa: F401 (loads threadpoolctl)
+    from workbench.chemistry.solver import limit_blas  # noqa: F401 (loads threadpoolctl)
 
     rows = []
     rows += case_single_metal(repeat)

@@ -11,8 +11,8 @@ shows a solid appearing or dissolving, the start takes that change of solids bef
 G = log10 I(computed) - u = 0), and a present solid that fixes a single free concentration (a hydroxide at fixed
 pH) is eliminated before the LU. With ideal activities at fixed pH, a point whose solids fix every free
 concentration takes no Newton step at all (:func:`_explicit`). Sums over species are gathered per component and
-per Jacobian entry from lists made once per tableau (solver.py), and concentrations use a vectorisable 10**y
-(:func:`_exp10`).
+per Jacobian entry from lists made once per tableau (equations.py), and concentrations use a vectorisable 10**y
+(:func:`exp10`).
 
 The kernel is kept simple on purpose: it adds one solid at a time and drops the most negative one, and whenever
 something does not go straight (Newton does not converge, a singular system, too many changes of the solids, an
@@ -39,12 +39,13 @@ from llvmlite import ir
 from numba import njit, types
 from numba.extending import intrinsic
 
-from workbench.chemistry.solver import (
+from workbench.chemistry.equations import (
     ABSENT,
     EARLY_DROP_ITER,
     FAR_START_LOG,
     INIT_ITER,
     LN10,
+    MAX_IONIC_STRENGTH,
     MAX_STEP_LOG,
     NEAR_RESIDUAL,
     RESTORE_PH_WEIGHT,
@@ -56,6 +57,9 @@ from workbench.chemistry.solver import (
     TOL_STALL,
     TOL_STEP,
     VERIFY_SATURATION,
+    Equilibrium,
+    Problem,
+    compiled_arrays,
 )
 from workbench.chemistry.water_properties import DAVIES_LINEAR
 
@@ -80,7 +84,7 @@ V_G_SP = 26
 V_W_DAVIES = 27
 VEC_ROWS, IVEC_ROWS, MAT_COUNT = 28, 8, 4
 I_FREE, I_ACT, I_ALL, I_PIN = 0, 2, 3, 5
-# 10**y in _exp10: log10(2) split so that k * LOG10_2_HI is exact (its last 32 bits are zero) for |k| < 2**20
+# 10**y in exp10: log10(2) split so that k * LOG10_2_HI is exact (its last 32 bits are zero) for |k| < 2**20
 LOG10_2_HI = 0.30102992057800293
 LOG10_2_LO = 7.508597826552624e-08  # log10(2) - LOG10_2_HI
 LOG2_10 = 3.321928094887362
@@ -149,7 +153,7 @@ _C = EXP_TAYLOR
 
 
 @njit(cache=True, fastmath=FAST - {"reassoc"}, _nrt=False)
-def _exp10(y):
+def exp10(y):
     """10**y for -300 <= y <= 300, to about 2 ulp. numba compiles exp() to one call of the C library per element;
     this form (y = k log10(2) + t with integer k, 10**t = e**(t ln 10) by its Taylor polynomial, times 2**k built
     from its bits) has no call, so a loop over species runs on the CPU's vector units (about 5x faster here).
@@ -196,7 +200,7 @@ def _concentrations(log_k, a_ptr, a_col, a_val, x, lg, comp_species, logc, c, xl
         logc[i] = acc
     for i in range(logc.size):
         acc = logc[i]
-        value = _exp10(min(max(acc, UNDERFLOW_LOG), 300.0))
+        value = exp10(min(max(acc, UNDERFLOW_LOG), 300.0))
         c[i] = value if acc > UNDERFLOW_LOG else 0.0
 
 
@@ -1431,19 +1435,120 @@ def run_chunks(args: tuple, chunks: np.ndarray, n_species: int, n_components: in
         job.result()
 
 
-def _compile() -> None:
-    """Compile the kernel into numba's cache (``python -m workbench.chemistry.kernel``; `make install` runs it):
-    one small solve in each mode, so the first solve in a notebook does not wait for the compiler."""
+# ---------------------------------------------------------------------------------------------------- the driver
+KERNEL_MIN_CHUNK = 64  # fewer points per chunk than this are not worth a thread (each chunk starts cold)
+# threads: a call whose estimated time on one thread is below KERNEL_THREAD_SECONDS runs on one (handing work to
+# a second thread costs about 0.2 ms on a 2-core laptop). The estimate is points x species x seconds per species
+# and point, measured on such a machine with `make bench`; it depends on the call alone, never on timings, so
+# that the same call is always split the same way and gives the same digits
+KERNEL_THREAD_SECONDS = 2e-3
+KERNEL_SPECIES_SECONDS = 2.5e-7  # Newton steps with Davies activities, or in charge-balance mode
+KERNEL_SPECIES_SECONDS_EXPLICIT = 4e-8  # fixed pH, ideal activities: most points need no Newton step
+NO_POINTS = np.empty(0, int)  # no points given up (read only)
+NO_POINTS.flags.writeable = False
+
+
+def solve(problem: Problem, use_start: bool, guess: np.ndarray) -> tuple[Equilibrium, np.ndarray]:
+    """Solve the points of a problem (made with ``compiled=True``) with the kernel, in place. Without a
+    start, points are solved in order, each from the one before (a continuation along the curve), in one chunk
+    per thread. Returns the Equilibrium (verified at the points it solved) and the points it gave up."""
+    tab = problem.tab
+    n_pts = problem.x.shape[0]
+    if not use_start and not problem.present.all():  # (x is zero where a component is present)
+        problem.x[:, 1:] = np.where(problem.present[:, 1:], 0.0, ABSENT)
+    # threads pay only for enough work (see KERNEL_THREAD_SECONDS); with a start, chunks cost nothing extra
+    # and several per thread balance the load; without, each chunk's first point starts cold: one per thread
+    per_species = (
+        KERNEL_SPECIES_SECONDS_EXPLICIT
+        if problem.ideal and problem.ph is not None
+        else KERNEL_SPECIES_SECONDS
+    )
+    heavy = n_pts * len(tab.species) * per_species >= KERNEL_THREAD_SECONDS
+    n_threads = threads() if heavy else 1
+    per_chunk = max(KERNEL_MIN_CHUNK, -(-n_pts // (n_threads * (4 if use_start and n_threads > 1 else 1))))
+    chunks = np.array([*range(0, n_pts, per_chunk), n_pts], np.int64)
+    ok = np.zeros(n_pts, bool)
+    problem.stats = np.zeros((n_pts, 3), np.int64)
+    ionic_ceiling = np.inf if problem.ideal else MAX_IONIC_STRENGTH
+    n_sp, n_so = len(tab.species), len(tab.solids)
+    conc = np.empty((n_pts, n_sp))
+    log_gamma = np.empty((n_pts, n_sp))
+    si = np.empty((n_pts, n_so))
+    dissolved = np.empty((n_pts, problem.m))
+    ionic = np.empty(n_pts)
+    charge = np.empty(n_pts)
+    # (writable copies of read-only constants, e.g. the tableau's own: numba compiles read-only arrays as another
+    # type, which would mean a second compile of the whole kernel)
+    args = (
+        _writable(problem.log_k),
+        _writable(problem.log_ks),
+        *compiled_arrays(tab),
+        problem.ideal,
+        problem.ph is not None,
+        np.zeros(n_pts) if problem.ph is None else np.ascontiguousarray(problem.ph),
+        np.ascontiguousarray(guess, dtype=float),
+        problem.t,
+        problem.free,
+        problem.present,
+        np.ascontiguousarray(problem.possible),
+        problem.x,
+        problem.n,
+        problem.active,
+        problem.ionic,
+        use_start,
+        problem.x.copy() if use_start else problem.x,
+        problem.active.copy() if use_start else problem.active,
+        problem.ionic.copy() if use_start else problem.ionic,
+        ionic_ceiling,
+        ok,
+        problem.stats,
+        conc,
+        log_gamma,
+        si,
+        dissolved,
+        ionic,
+        charge,
+    )
+    run_chunks(args, chunks, n_sp, problem.m, n_so)
+    ph = -(problem.x[:, 0] + log_gamma[:, problem.comp_species[0]])
+    eq = Equilibrium(
+        tableau=tab,
+        log_free=problem.x,
+        conc=conc,
+        log_gamma=log_gamma,
+        solid_amount=problem.n,  # the kernel sets absent solids' amounts to zero
+        saturation_index=si,
+        ionic_strength=ionic,
+        ph=ph,
+        strong_base=-charge if problem.ph is not None else np.zeros(n_pts),
+        totals=problem.t,
+        dissolved_totals=dissolved,
+    )
+    return eq, (NO_POINTS if ok.all() else np.flatnonzero(~ok))
+
+
+def _writable(arr: np.ndarray) -> np.ndarray:
+    return arr if arr.flags.writeable else arr.copy()
+
+
+def compile_now() -> float:
+    """Compile the kernel, or load it from numba's cache: one small solve in each mode (fixed pH and charge
+    balance) through :func:`solve`. Returns the seconds it took."""
     import time
 
-    import workbench as wb
+    from workbench.chemistry import tableau
 
     t0 = time.perf_counter()
-    water = wb.Water(metals_mg_l={"Zn": 5.0}, ph=6.5, alkalinity_mg_l_caco3=50.0)
-    wb.residual_curve(water, [6.0, 9.0, 12.0])
-    wb.dose_curve(water, "lime", [0.0, 50.0])
-    print(f"solver kernel compiled and cached in {time.perf_counter() - t0:.1f} s")
+    tab = tableau.build(("Zn^2+", "CO3^2-"), 25.0, "fresh")
+    totals = np.zeros((3, len(tab.components)))
+    totals[:, tab.component("Zn^2+")] = 1e-4
+    totals[:, tab.component("CO3^2-")] = 1e-3
+    guess = np.full(3, 7.0)
+    for ph in (np.array([6.0, 9.0, 12.0]), None):
+        problem = Problem(tab, totals, ph, "davies", compiled=True)
+        solve(problem, False, guess)
+    return time.perf_counter() - t0
 
 
-if __name__ == "__main__":
-    _compile()
+if __name__ == "__main__":  # `make install` runs it: python -m workbench.chemistry.kernel
+    print(f"solver kernel compiled and cached in {compile_now():.1f} s", flush=True)
