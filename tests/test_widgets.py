@@ -16,6 +16,7 @@ import pytest
 from plotly.utils import PlotlyJSONEncoder
 
 import workbench as wb
+import workbench.scenario as scenario_module
 from workbench.figures.setpoint import FLOOR_MG_L
 from workbench.scenario import (
     DesignOptions,
@@ -202,7 +203,7 @@ def test_an_unexpected_failure_is_logged_and_shown_and_inputs_stay(panel, monkey
     def broken(*args, **kwargs):
         raise RuntimeError("solver exploded")
 
-    monkeypatch.setattr(wb, "design_setpoint", broken)
+    monkeypatch.setattr(scenario_module, "design_setpoint", broken)  # (the panel designs through design_scenario)
     before_values, before_figure = values(panel), figure_data(panel.figure)
     with caplog.at_level(logging.ERROR, logger="workbench.widgets.setpoint"):
         panel.fields["margin"].value = 0.65

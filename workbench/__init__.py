@@ -12,7 +12,7 @@ Results are theoretical equilibrium: confirm by jar tests; the local permit and 
 """
 
 from workbench.errors import ConvergenceError, DataError, InputError, ModelRangeError
-from workbench.scenario import Scenario, read_scenario, save_scenario
+from workbench.scenario import Scenario, design_scenario, read_scenario, save_scenario
 from workbench.treatment.calibration import (
     ShiftFit,
     calibrated_shift,
@@ -51,6 +51,7 @@ __all__ = [
     "calibrated_shift",
     "daily_table",
     "combine_limits",
+    "design_scenario",
     "design_setpoint",
     "dose_curve",
     "dose_for_ph",

@@ -41,10 +41,10 @@ from workbench.errors import InputError
 from workbench.figures.caption import add_caption
 from workbench.figures.residuals import fig_residual_curve
 from workbench.figures.setpoint import fig_setpoint
-from workbench.scenario import Scenario, write_atomic
+from workbench.scenario import Scenario, design_scenario, write_atomic
 from workbench.treatment.cautions import cautions as standard_cautions
 from workbench.treatment.provenance import constants_used, sources_of
-from workbench.treatment.setpoint import SetpointDesign, design_setpoint
+from workbench.treatment.setpoint import SetpointDesign
 from workbench.treatment.solubility import minimum_solubility, residual_curve
 
 __all__ = [
@@ -132,7 +132,7 @@ def build_figure_pack(
         )
     water, d = scenario.water, scenario.design
     limits = scenario.limits_table()
-    design = design_setpoint(water, limits, progress=progress, **scenario.design_kwargs())
+    design = design_scenario(scenario, progress=progress)
     opts = dict(solids=d.solids, solubility_shift=scenario.solubility_shift)
     grid = np.round(np.arange(d.ph_low, d.ph_high + 1e-9, CURVE_STEP), 6)
     residuals = residual_curve(water, grid, **opts)

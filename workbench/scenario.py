@@ -54,7 +54,7 @@ import os
 import re
 import tempfile
 import tomllib
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field, fields, replace
 from pathlib import Path
 from types import MappingProxyType
@@ -64,7 +64,13 @@ import pandas as pd
 from workbench._paths import data_dir
 from workbench.errors import InputError
 from workbench.treatment.limits import BASES, available_limit_sets, combine_limits, load_limits, permit_limits
-from workbench.treatment.setpoint import DEFAULT_MARGIN, DEFAULT_PH_RANGE, RULES
+from workbench.treatment.setpoint import (
+    DEFAULT_MARGIN,
+    DEFAULT_PH_RANGE,
+    RULES,
+    SetpointDesign,
+    design_setpoint,
+)
 from workbench.treatment.solubility import MAX_SHIFT_LOG
 from workbench.treatment.uncertainty import MAX_SAMPLES
 from workbench.treatment.water import METALS, REFUSED_METALS, Water
@@ -81,6 +87,7 @@ __all__ = [
     "UncertaintySettings",
     "demo_scenario_path",
     "demo_water",
+    "design_scenario",
     "parse_scenario",
     "read_scenario",
     "save_scenario",
@@ -581,6 +588,45 @@ def _toml_value(value) -> str:
 
 
 # ---------------------------------------------------------------------------------------------------- reading
+def design_scenario(
+    scenario: Scenario,
+    *,
+    samples: int | None = None,
+    step: float | None = None,
+    progress: Callable[[int, int], None] | None = None,
+) -> SetpointDesign:
+    """The setpoint design of a scenario: its influent against its limit table with its design options and its
+    Monte Carlo settings (:func:`workbench.design_setpoint`). The figure pack, the setpoint panel and the command
+    line all make their design here.
+
+    Parameters
+    ----------
+    scenario : Scenario
+        It needs a ``[limits]`` table.
+    samples : int, optional
+        Monte Carlo samples instead of the scenario's ``[uncertainty] samples`` (0: no band).
+    step : float, optional
+        pH grid step of the design instead of design_setpoint's default. [pH units]
+    progress : callable(done, total), optional
+        Called as Monte Carlo samples complete.
+
+    Raises
+    ------
+    InputError
+        When the scenario is not a Scenario or has no limits, or an option is refused by the design.
+    """
+    if not isinstance(scenario, Scenario):
+        raise InputError(
+            "scenario", type(scenario).__name__, "a workbench Scenario (read_scenario) is required"
+        )
+    kwargs = scenario.design_kwargs()
+    if samples is not None:
+        kwargs["samples"] = samples
+    if step is not None:
+        kwargs["step"] = step
+    return design_setpoint(scenario.water, scenario.limits_table(), progress=progress, **kwargs)
+
+
 def demo_scenario_path() -> Path:
     """Path of the bundled demo scenario (an invented plant)."""
     return data_dir() / "demo" / "demo_scenario.toml"

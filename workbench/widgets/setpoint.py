@@ -30,6 +30,7 @@ from workbench.scenario import (
     Scenario,
     UncertaintySettings,
     demo_scenario_path,
+    design_scenario,
     read_scenario,
     save_scenario,
 )
@@ -728,14 +729,13 @@ class SetpointPanel:
 
     def _design_for(self, scenario: Scenario, *, progress=None, samples: int = 0):
         """The treatment layer's design for these inputs (recent designs without a band are reused)."""
-        kwargs = {**scenario.design_kwargs(), "samples": samples, "step": self.ph_step}
         if samples:
-            return wb.design_setpoint(scenario.water, scenario.limits_table(), progress=progress, **kwargs)
+            return design_scenario(scenario, samples=samples, step=self.ph_step, progress=progress)
         key = (replace(scenario, name="").to_toml(), self.ph_step)  # the name changes no number
         if key in self._designs:
             self._designs.move_to_end(key)
             return self._designs[key]
-        design = wb.design_setpoint(scenario.water, scenario.limits_table(), **kwargs)
+        design = design_scenario(scenario, samples=0, step=self.ph_step)
         self._designs[key] = design
         while len(self._designs) > CACHE_SIZE:
             self._designs.popitem(last=False)
