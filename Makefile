@@ -30,7 +30,7 @@ $(STAMP): pyproject.toml
 	test -x $(PY) || $(RUN) $(PYTHON3) -m venv $(VENV)
 	test -x $(UV) || $(RUN) $(PY) -m pip install --quiet uv
 	$(RUN) $(UV) pip install --python $(PY) --config-settings editable_mode=compat -e '.[test]'
-	$(RUN) $(PY) -m workbench.chemistry.kernel
+	$(RUN) $(PY) -m workbench.chemistry.compiled_engine
 	touch $@
 
 test: install

@@ -2,7 +2,7 @@
 
 Every row is a test: the call raises ``workbench.InputError`` (a ``ValueError``; ``ModelRangeError`` is a
 subclass) whose ``field`` is the one named here and whose message says what is allowed (the text quoted here is
-part of it). The table below is the one in DEVELOPERS.md ("Bad input"); a test checks that it lists exactly the
+part of it). DEVELOPERS.md points here for the table of bad inputs; a test checks that it lists exactly the
 rows tested.
 
 | Entry point | Bad input | Error: `field`: what is allowed (part of the message) |

@@ -18,7 +18,7 @@ import pytest
 from numba import njit
 
 from tests.benchmarks.__main__ import mixed_water as benchmark_water
-from workbench.chemistry import equations, kernel, solver, tableau
+from workbench.chemistry import compiled_engine, equations, kernel, solver, tableau
 from workbench.errors import ModelRangeError
 from workbench.treatment.dose import dose_curve
 from workbench.treatment.solubility import equilibrium
@@ -37,13 +37,13 @@ def kernel_states(monkeypatch):
     """The problems of the compiled-engine calls made in a test (their stats: Newton steps per point and more), in
     call order."""
     states = []
-    real = kernel.solve
+    real = compiled_engine.solve
 
     def keep_state(problem, *args):
         states.append(problem)
         return real(problem, *args)
 
-    monkeypatch.setattr(kernel, "solve", keep_state)
+    monkeypatch.setattr(compiled_engine, "solve", keep_state)
     return states
 
 
@@ -189,7 +189,9 @@ def test_perturbed_constants_from_a_start_match(kernel_states):
     rng = np.random.default_rng(7)
     k = 6
     log_k = np.repeat(tab.log_k[None, :] + 0.3 * rng.standard_normal((k, tab.log_k.size)), grid.size, axis=0)
-    log_ks = np.repeat(tab.log_ks[None, :] + 0.3 * rng.standard_normal((k, tab.log_ks.size)), grid.size, axis=0)
+    log_ks = np.repeat(
+        tab.log_ks[None, :] + 0.3 * rng.standard_normal((k, tab.log_ks.size)), grid.size, axis=0
+    )
     start = solver.StartRows(nominal, np.tile(np.arange(grid.size), k))
     before = len(kernel_states)  # (the nominal solve above may have been one)
     fast, ref = both(tab, start.totals, np.tile(grid, k), log_k=log_k, log_ks=log_ks, start=start)
@@ -199,19 +201,17 @@ def test_perturbed_constants_from_a_start_match(kernel_states):
 
 def test_points_the_kernel_gives_up_are_solved_by_the_numpy_solver(monkeypatch):
     """Every point handed over (here: all, by a kernel that gives up everything) comes back solved and verified."""
-    from workbench.chemistry import kernel
-
     tab, eq = equilibrium(mixed_water(), np.array([7.0]))
     ph = np.linspace(4.0, 14.0, 41)
     ref = solver.solve(tab, eq.totals[0], ph, engine="numpy")
-    real = kernel.run_chunks
+    real = compiled_engine.run_chunks
 
     def give_up_every_other(args, chunks, *sizes):
         real(args, chunks, *sizes)
-        ok = args[kernel.CHUNKS_ARGUMENT + 1]
+        ok = args[compiled_engine.CHUNKS_ARGUMENT + 1]
         ok[::2] = False
 
-    monkeypatch.setattr(kernel, "run_chunks", give_up_every_other)
+    monkeypatch.setattr(compiled_engine, "run_chunks", give_up_every_other)
     assert_same(solver.solve(tab, eq.totals[0], ph), ref)
 
 

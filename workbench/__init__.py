@@ -1,14 +1,54 @@
 """Hydroxide-precipitation workbench: pH setpoints, reagent dose, sludge and jar-test review for metal-bearing
 wastewater.
 
-Public API (``import workbench as wb``)::
-
-    wb.Water(metals_mg_l={...}, temperature_c=25.0, ph=..., sulfate_mg_l=..., ...)
-    wb.residual_curve(water, ph)        # dissolved metal vs pH, mg/L
-    wb.minimum_solubility(water)        # each metal's minimum-solubility pH and controlling solid
-    wb.speciate(water, ph)              # one equilibrium: species, solids, saturation indices
-
 Results are theoretical equilibrium: confirm by jar tests; the local permit and a licensed engineer govern.
+
+Public API (``import workbench as wb``; stable: notebooks, the command line and outside checks call it)::
+
+    wb.Water(metals_mg_l={...}, temperature_c=25, ph=None, sulfate_mg_l, chloride_mg_l, sodium_mg_l,
+             calcium_mg_l, magnesium_mg_l, alkalinity_mg_l_caco3, ammonia_mg_l_n, edta_mg_l, citrate_mg_l,
+             fluoride_mg_l, tss_mg_l, name)
+        an influent, validated on construction
+    wb.residual_curve(water, ph, *, solids="fresh", activity="davies", solubility_shift=None)
+        DataFrame, index pH, a column per metal: dissolved mg/L
+    wb.minimum_solubility(water, *, ph_range=(4, 13.5), solids, activity, solubility_shift)
+        DataFrame per metal: ph_min, residual_mg_l, solid, ph_low_2x, ph_high_2x, influent_mg_l, note
+    wb.speciate(water, ph=None, ...)
+        SpeciationResult: species, solids, saturation, ionic strength, strong base that holds the pH
+    wb.available_limit_sets(), wb.load_limits(name)
+        example discharge-limit sets (40 CFR 433.15, 433.17, 413.14): metal, basis, limit_mg_l, source, origin
+    wb.permit_limits({metal: mg_l}, *, basis="permit", source=...), wb.combine_limits(*tables)
+        the user's own limits; later tables win per metal and basis
+    wb.design_setpoint(water, limits, margin=0.5, *, ph_range, step, rule, basis, effluent_tss_mg_l, solids,
+                       solubility_shift, two_stage, samples, seed, default_uncertainty, progress)
+        SetpointDesign: windows, setpoint_ph, rule, table (headroom per metal), edges (limiting metal), stages
+        (two-stage scheme or None), curve, targets, compared, notes, cautions, warnings, band
+    wb.design_scenario(scenario, *, samples=None, step=None, progress=None)
+        the design of a scenario (design_setpoint with its influent, limits, options and Monte Carlo settings):
+        what the figure pack, the setpoint panel and the command line call
+    wb.uncertainty_band(water, ph, *, samples, seed, quantiles, default_uncertainty, uncertainty_scale, limits,
+                        setpoint_ph, progress)
+        UncertaintyBand: nominal, lower, median, upper curves; probability of meeting each limit
+    wb.raw_water_acidity(water)
+        unmeasured strong acid/base that closes the analysis at its pH; mineral and total acidity (as CaCO3)
+    wb.dose_curve(water, reagent, dose_mg_l, *, purity=None, extra_calcium_chloride_mg_l=0, solids)
+        titration curve: dose_mg_l, pH, dissolved metals, fluoride_mg_l, sludge_mg_l, calcium_mg_l
+    wb.dose_for_ph(water, reagent, target_ph, *, purity=None, ...), wb.reagent_ceiling_ph(water, reagent)
+        dose of product as sold for a target pH (bracketed root); the reagent's own pH ceiling in this water
+    wb.sludge_at_dose(water, reagent, dose_mg_l, *, flow_m3_d, solids_fraction),
+    wb.daily_table(water, reagent, target_ph, flow_m3_d), wb.fluoride_at_setpoint(...)
+        sludge per solid (mg/L, kg/d, wet m3/d); daily reagent and sludge table; residual fluoride
+    wb.read_jar_tests(path_or_buffer, *, decimal=".", detection_limits_mg_l=None)
+        jar-test file (CSV or .xlsx, our own format: README) -> tidy DataFrame
+    wb.overlay(tidy, water), wb.fit_solubility_shifts(tidy, water), wb.calibrated_shift(fits),
+    wb.flag_jars(tidy, water)
+        jar tests against the model: overlay, fitted apparent solubility shift per metal (ShiftFit with its
+        interval), the shift dict for solubility_shift=, flags with reasons
+    wb.read_scenario(path), wb.save_scenario(scenario, path), wb.Scenario
+        scenario files (our own TOML schema: workbench.scenario)
+
+Errors: ``wb.InputError`` (a ``ValueError``: field, value, what is allowed), ``wb.ModelRangeError`` (beyond the
+activity model's range), ``wb.ConvergenceError``, ``wb.DataError``.
 """
 
 from workbench.errors import ConvergenceError, DataError, InputError, ModelRangeError

@@ -1,38 +1,78 @@
-"""Compiled per-point equilibrium kernel: the solver's fast path.
+"""Compiled per-point equilibrium kernel (numba): the code of the compiled engine.
 
-The same model as :mod:`workbench.chemistry.solver` (Newton-Raphson on the convex dual in log10 free
-concentrations, an active set of solids, Davies activity coefficients), written as one loop over points and
-compiled with numba. Each point starts from the solution of the point before it in the same chunk, extrapolated
-from the two before (a curve along pH or dose is a continuation: two or three Newton steps per point), or from a
-given start moved as the point before moved from its own (Monte Carlo samples); only the first point of a chunk,
-or a point whose components differ from its neighbour's, starts cold. Where the trend of the two points before
-shows a solid appearing or dissolving, the start takes that change of solids before any Newton step
-(:func:`_expected_solids`). Near the solution the ionic strength is one more Newton unknown (u = log10 I, with
-G = log10 I(computed) - u = 0), and a present solid that fixes a single free concentration (a hydroxide at fixed
-pH) is eliminated before the LU. With ideal activities at fixed pH, a point whose solids fix every free
-concentration takes no Newton step at all (:func:`_explicit`). Sums over species are gathered per component and
-per Jacobian entry from lists made once per tableau (equations.py), and concentrations use a vectorisable 10**y
-(:func:`exp10`).
+The same model as the numpy engine (:mod:`workbench.chemistry.equations`: Newton-Raphson on the convex dual in
+log10 free concentrations, an active set of solids, Davies activity coefficients), written as one loop over
+points (:func:`solve_points`). :mod:`workbench.chemistry.compiled_engine` prepares its arguments and runs it on
+a thread per core; this module holds only compiled code and its constants, so that a change to the driver does
+not invalidate numba's cache of the kernel (keyed on this file's time stamp and size).
 
-The kernel is kept simple on purpose: it adds one solid at a time and drops the most negative one, and whenever
-something does not go straight (Newton does not converge, a singular system, too many changes of the solids, an
-ionic strength beyond the activity model's range, a failed verification) it gives the point up (``ok[p] =
-False``). The numpy solver, with all its safeguards, then solves those points; every point, from either path,
-passes the same verification before it is returned.
+How a point is solved
+---------------------
+* Each point starts from the solution of the point before it in the same chunk, extrapolated from the two before
+  (a curve along pH or dose is a continuation: two or three Newton steps per point), or from a given start moved
+  as the point before moved from its own (Monte Carlo samples; a sample keeps the solids it gained or lost at
+  the point before, with its shift from the nominal solution). Only the first point of a chunk, or a point whose
+  components differ from its neighbour's, starts cold (:func:`_cold_start`).
+* Where the trend of the two points before shows a solid appearing (its saturation index, extrapolated, above
+  EARLY_ADD_SI) or dissolving (its amount, extrapolated, below zero), the start takes that change before any
+  Newton step (:func:`_expected_solids`); converging on the old set first cost three or four extra steps.
+  Mean Newton steps per Monte Carlo point: 2.66 -> 2.38 (two is the floor with a 1e-12 residual: one step from
+  the predictor, one to the quadratic check).
+* Near the solution the ionic strength is one more Newton unknown (u = log10 I, G = log10 I(computed) - u = 0).
+  A present solid that fixes a single free concentration (a hydroxide at fixed pH) is eliminated before the LU
+  (:func:`_solve_kkt`).
+* With ideal activities at fixed pH, a point whose solids fix every free concentration (each metal present as
+  its hydroxide or oxide, no ligand) is explicit: the free concentrations follow from saturation and the solid
+  amounts from the mass balances, with no Newton step (:func:`_explicit`); where a solid would come out negative
+  or another becomes supersaturated, the point takes the Newton steps.
+* The kernel is kept simple on purpose: it adds one solid at a time and drops the most negative one, and
+  whenever something does not go straight (Newton does not converge, a singular system, too many changes of the
+  solids, an ionic strength beyond the activity model's range, a failed verification) it gives the point up
+  (``ok[p] = False``). The numpy engine, with all its safeguards, then solves those points; every point, from
+  either engine, passes the same verification (:func:`_final`, the numpy engine's ``State.finish``).
 
-It runs without numba's reference counting (``_nrt=False``) and allocates nothing: the working arrays come from
-Python (:func:`buffers`, three packed arrays kept per thread), and :func:`run_chunks` runs chunks on a thread per
-core.
+What makes it fast (keep it that way)
+-------------------------------------
+* No allocation and no reference counting: compiled with ``_nrt=False``; the working arrays come from Python
+  (``compiled_engine.buffers``: rows of floats, rows of integers and the square matrices, packed in three arrays,
+  made once per thread and system size and kept; the rows are named V_* and I_* below). Reference counts of the
+  arrays passed per point used to cost as much as the arithmetic, and numba passes every array of a call field
+  by field, so a call with thirty arrays cost more than the work of an easy point (both measured with
+  ``perf``). No ``np.empty``, no array results, few array arguments in kernel code. The verification, the
+  explicit points and the concentrations are inlined (``inline="always"``) into their callers for the same
+  reason; inlining the whole per-point solve as well doubles the compile time.
+* Species concentrations use the kernel's own 10**y (:func:`exp10`: y = k log10(2) + t, a Taylor polynomial in
+  t ln 10, 2**k built from its bits; within 2 ulp of numpy's power, tested). numba without Intel's SVML (pip
+  builds) compiles ``np.exp`` to one C-library call per element, which was a seventh of the Monte Carlo time;
+  this form has no call, so the loop over species runs on the vector units (about 5x faster). It is compiled
+  without the "reassoc" fast-math flag: reassociating the reduction would cost up to 30 ulp at |y| near 300.
+  (Pointing LLVM at glibc's vector maths library through llvmlite options did not take effect.)
+* Sums that used to add species by species into memory (mass balances, their Jacobian, the ionic-strength
+  column) are gathered entry by entry from lists made once per tableau (``equations.by_component``,
+  ``jacobian_terms``, ``solid_rows``): each sum stays in a register instead of every addition waiting for the
+  one before it. The solids' stoichiometry is used as compressed rows (two or three components per solid).
+* Tried and measured, not kept: concentrations as products of powers of the component activities (one exp() per
+  component instead of per species) was slower; zeroing the Newton matrices in one block instead of row by row
+  changed nothing; more chunks per thread in Monte Carlo calls (16 instead of 4) changed nothing; a chord step
+  (reusing the first step's factorisation) cannot meet the 1e-12 residual in one step from the typical first
+  step of 1e-4..1e-3, so it would not save a factorisation.
+
+Changing it
+-----------
+numba compiles the kernel on first use (about 30 s on a 2-core machine, one type signature: the driver always
+passes the same array types) and caches it in ``__pycache__/`` beside this file. ``make install`` compiles it
+(``python -m workbench.chemistry.compiled_engine``); a process that finds no usable cache compiles it in the
+background while the numpy engine serves (see the compiled engine). Measure a change with ``make bench`` and
+check it with ``tests/test_kernel.py`` (the kernel against the numpy engine, to 1e-8) and
+``tests/test_properties.py`` (every answer of 10,000 drawn waters verified). Costs inside the kernel are
+measured by duplicating one part in a copy of this module and timing both on the same captured Monte Carlo
+call, single-threaded, taking the minimum of many runs (the machine's speed drifts too much for medians;
+``perf`` attribution is unreliable in a VM).
 """
 
 from __future__ import annotations
 
-import functools
-import inspect
 import math
-import os
-import threading
-from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
 from llvmlite import ir
@@ -45,7 +85,6 @@ from workbench.chemistry.equations import (
     FAR_START_LOG,
     INIT_ITER,
     LN10,
-    MAX_IONIC_STRENGTH,
     MAX_STEP_LOG,
     NEAR_RESIDUAL,
     RESTORE_PH_WEIGHT,
@@ -57,9 +96,6 @@ from workbench.chemistry.equations import (
     TOL_STALL,
     TOL_STEP,
     VERIFY_SATURATION,
-    Equilibrium,
-    Problem,
-    compiled_arrays,
 )
 from workbench.chemistry.water_properties import DAVIES_LINEAR
 
@@ -1362,193 +1398,3 @@ def solve_points(
             ok[p] = good
             prev2 = prev if good else -1
             prev = p if good else -1
-
-
-CHUNKS_ARGUMENT = list(inspect.signature(getattr(solve_points, "py_func", solve_points)).parameters).index(
-    "chunks"
-)
-
-
-@functools.cache
-def threads() -> int:
-    """Threads the kernel may use: the cores this process may run on (looked up once per process)."""
-    return max(1, len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (os.cpu_count() or 1))
-
-
-_POOL: list = []
-
-
-def _reset_pool() -> None:
-    _POOL.clear()  # a forked child has none of its parent's threads: it makes its own pool when needed
-    threads.cache_clear()  # nor, perhaps, its cores
-
-
-os.register_at_fork(after_in_child=_reset_pool)
-
-
-def buffers(n_species: int, n_components: int, n_solids: int) -> tuple:
-    """Working arrays for one chunk of solve_points, packed in three arrays so that a call passes three arrays,
-    not thirty (the kernel allocates nothing: it runs without numba's reference counting, which in a per-point
-    loop costs as much as the arithmetic, and more on two threads): rows of floats and of integers, each long
-    enough for any vector of the system, and the square matrices (see _solve_point for which row is which)."""
-    big = n_components + n_solids + 1
-    width = max(n_species, big)
-    return (
-        np.zeros((VEC_ROWS, width)),
-        np.zeros((IVEC_ROWS, width), np.int64),
-        np.zeros((MAT_COUNT, big, big)),
-    )
-
-
-_LOCAL = threading.local()
-
-
-def _own_buffers(sizes: tuple) -> tuple:
-    """This thread's working arrays for a system of these sizes, made once and kept (a thread runs one solve at
-    a time: the compiled kernel never calls back into Python)."""
-    kept = getattr(_LOCAL, "buffers", None)
-    if kept is None or len(kept) > 8:
-        kept = _LOCAL.buffers = {}
-    if sizes not in kept:
-        kept[sizes] = buffers(*sizes)
-    return kept[sizes]
-
-
-def _run(before: tuple, chunks: np.ndarray, after: tuple, sizes: tuple) -> None:
-    solve_points(*before, chunks, *after, _own_buffers(sizes))
-
-
-def run_chunks(args: tuple, chunks: np.ndarray, n_species: int, n_components: int, n_solids: int) -> None:
-    """Run solve_points(*args[:chunk position], chunks, *rest, buffers) over the chunks, one chunk per thread
-    (the compiled kernel releases the GIL); a single chunk runs in the calling thread."""
-    before, after = args[:CHUNKS_ARGUMENT], args[CHUNKS_ARGUMENT:]
-    sizes = (n_species, n_components, n_solids)
-    if chunks.size <= 2:
-        _run(before, chunks, after, sizes)
-        return
-    if not _POOL:
-        _POOL.append(ThreadPoolExecutor(max_workers=threads(), thread_name_prefix="equilibrium"))
-    jobs = [
-        _POOL[0].submit(_run, before, chunks[i : i + 2].copy(), after, sizes) for i in range(chunks.size - 1)
-    ]
-    for job in jobs:
-        job.result()
-
-
-# ---------------------------------------------------------------------------------------------------- the driver
-KERNEL_MIN_CHUNK = 64  # fewer points per chunk than this are not worth a thread (each chunk starts cold)
-# threads: a call whose estimated time on one thread is below KERNEL_THREAD_SECONDS runs on one (handing work to
-# a second thread costs about 0.2 ms on a 2-core laptop). The estimate is points x species x seconds per species
-# and point, measured on such a machine with `make bench`; it depends on the call alone, never on timings, so
-# that the same call is always split the same way and gives the same digits
-KERNEL_THREAD_SECONDS = 2e-3
-KERNEL_SPECIES_SECONDS = 2.5e-7  # Newton steps with Davies activities, or in charge-balance mode
-KERNEL_SPECIES_SECONDS_EXPLICIT = 4e-8  # fixed pH, ideal activities: most points need no Newton step
-NO_POINTS = np.empty(0, int)  # no points given up (read only)
-NO_POINTS.flags.writeable = False
-
-
-def solve(problem: Problem, use_start: bool, guess: np.ndarray) -> tuple[Equilibrium, np.ndarray]:
-    """Solve the points of a problem (made with ``compiled=True``) with the kernel, in place. Without a
-    start, points are solved in order, each from the one before (a continuation along the curve), in one chunk
-    per thread. Returns the Equilibrium (verified at the points it solved) and the points it gave up."""
-    tab = problem.tab
-    n_pts = problem.x.shape[0]
-    if not use_start and not problem.present.all():  # (x is zero where a component is present)
-        problem.x[:, 1:] = np.where(problem.present[:, 1:], 0.0, ABSENT)
-    # threads pay only for enough work (see KERNEL_THREAD_SECONDS); with a start, chunks cost nothing extra
-    # and several per thread balance the load; without, each chunk's first point starts cold: one per thread
-    per_species = (
-        KERNEL_SPECIES_SECONDS_EXPLICIT
-        if problem.ideal and problem.ph is not None
-        else KERNEL_SPECIES_SECONDS
-    )
-    heavy = n_pts * len(tab.species) * per_species >= KERNEL_THREAD_SECONDS
-    n_threads = threads() if heavy else 1
-    per_chunk = max(KERNEL_MIN_CHUNK, -(-n_pts // (n_threads * (4 if use_start and n_threads > 1 else 1))))
-    chunks = np.array([*range(0, n_pts, per_chunk), n_pts], np.int64)
-    ok = np.zeros(n_pts, bool)
-    problem.stats = np.zeros((n_pts, 3), np.int64)
-    ionic_ceiling = np.inf if problem.ideal else MAX_IONIC_STRENGTH
-    n_sp, n_so = len(tab.species), len(tab.solids)
-    conc = np.empty((n_pts, n_sp))
-    log_gamma = np.empty((n_pts, n_sp))
-    si = np.empty((n_pts, n_so))
-    dissolved = np.empty((n_pts, problem.m))
-    ionic = np.empty(n_pts)
-    charge = np.empty(n_pts)
-    # (writable copies of read-only constants, e.g. the tableau's own: numba compiles read-only arrays as another
-    # type, which would mean a second compile of the whole kernel)
-    args = (
-        _writable(problem.log_k),
-        _writable(problem.log_ks),
-        *compiled_arrays(tab),
-        problem.ideal,
-        problem.ph is not None,
-        np.zeros(n_pts) if problem.ph is None else np.ascontiguousarray(problem.ph),
-        np.ascontiguousarray(guess, dtype=float),
-        problem.t,
-        problem.free,
-        problem.present,
-        np.ascontiguousarray(problem.possible),
-        problem.x,
-        problem.n,
-        problem.active,
-        problem.ionic,
-        use_start,
-        problem.x.copy() if use_start else problem.x,
-        problem.active.copy() if use_start else problem.active,
-        problem.ionic.copy() if use_start else problem.ionic,
-        ionic_ceiling,
-        ok,
-        problem.stats,
-        conc,
-        log_gamma,
-        si,
-        dissolved,
-        ionic,
-        charge,
-    )
-    run_chunks(args, chunks, n_sp, problem.m, n_so)
-    ph = -(problem.x[:, 0] + log_gamma[:, problem.comp_species[0]])
-    eq = Equilibrium(
-        tableau=tab,
-        log_free=problem.x,
-        conc=conc,
-        log_gamma=log_gamma,
-        solid_amount=problem.n,  # the kernel sets absent solids' amounts to zero
-        saturation_index=si,
-        ionic_strength=ionic,
-        ph=ph,
-        strong_base=-charge if problem.ph is not None else np.zeros(n_pts),
-        totals=problem.t,
-        dissolved_totals=dissolved,
-    )
-    return eq, (NO_POINTS if ok.all() else np.flatnonzero(~ok))
-
-
-def _writable(arr: np.ndarray) -> np.ndarray:
-    return arr if arr.flags.writeable else arr.copy()
-
-
-def compile_now() -> float:
-    """Compile the kernel, or load it from numba's cache: one small solve in each mode (fixed pH and charge
-    balance) through :func:`solve`. Returns the seconds it took."""
-    import time
-
-    from workbench.chemistry import tableau
-
-    t0 = time.perf_counter()
-    tab = tableau.build(("Zn^2+", "CO3^2-"), 25.0, "fresh")
-    totals = np.zeros((3, len(tab.components)))
-    totals[:, tab.component("Zn^2+")] = 1e-4
-    totals[:, tab.component("CO3^2-")] = 1e-3
-    guess = np.full(3, 7.0)
-    for ph in (np.array([6.0, 9.0, 12.0]), None):
-        problem = Problem(tab, totals, ph, "davies", compiled=True)
-        solve(problem, False, guess)
-    return time.perf_counter() - t0
-
-
-if __name__ == "__main__":  # `make install` runs it: python -m workbench.chemistry.kernel
-    print(f"solver kernel compiled and cached in {compile_now():.1f} s", flush=True)

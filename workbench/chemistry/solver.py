@@ -5,7 +5,8 @@ none (charge-balance mode) at N points and returns a verified :class:`Equilibriu
 tolerances and the verification are in :mod:`workbench.chemistry.equations`. Two engines solve them, beside each
 other; neither imports the other or this module:
 
-* the compiled engine (:mod:`workbench.chemistry.kernel`, the default): a per-point loop compiled with numba,
+* the compiled engine (:mod:`workbench.chemistry.compiled_engine`, the default): a per-point loop compiled with numba
+  (:mod:`workbench.chemistry.kernel`),
   each point from its neighbour, on a thread per core for large calls. It gives up any point that does not go
   straight; those points go to the numpy engine.
 * the numpy engine (:mod:`workbench.chemistry.numpy_engine`): every point at once with every safeguard; the
@@ -103,14 +104,15 @@ def solve(
     limit_blas()
     if engine == "numpy":
         return numpy_engine.solve(tab, totals, ph_arr, activity, guess, log_k, log_ks, start).finish()
-    from workbench.chemistry import kernel  # (numba: loaded at the first compiled solve, not on import)
+    # (numba is imported at the first compiled solve, not with this module)
+    from workbench.chemistry import compiled_engine
 
     # the compiled kernel, which verifies what it returns; the points it gives up go to the numpy engine, whose
     # answers are verified in the same way (State.finish)
     problem = Problem(tab, totals, ph_arr, activity, log_k, log_ks, compiled=True)
     if start is not None:
         problem.start_from(start)  # (the kernel holds the pH itself)
-    eq, rest = kernel.solve(problem, start is not None, guess)
+    eq, rest = compiled_engine.solve(problem, start is not None, guess)
     if rest.size:
         sub = numpy_engine.solve(
             tab,
