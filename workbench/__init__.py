@@ -49,32 +49,92 @@ Public API (``import workbench as wb``; stable: notebooks, the command line and 
 
 Errors: ``wb.InputError`` (a ``ValueError``: field, value, what is allowed), ``wb.ModelRangeError`` (beyond the
 activity model's range), ``wb.ConvergenceError``, ``wb.DataError``.
+Names are imported on first use (``wb.Water`` loads the treatment layer then), so that ``import workbench``
+itself is quick; ``from workbench import Water`` works as usual.
 """
 
-from workbench.errors import ConvergenceError, DataError, InputError, ModelRangeError
-from workbench.scenario import Scenario, design_scenario, read_scenario, save_scenario
-from workbench.treatment.calibration import (
-    ShiftFit,
-    calibrated_shift,
-    fit_solubility_shifts,
-    flag_jars,
-    overlay,
-)
-from workbench.treatment.dose import (
-    daily_table,
-    dose_curve,
-    dose_for_ph,
-    fluoride_at_setpoint,
-    raw_water_acidity,
-    reagent_ceiling_ph,
-    sludge_at_dose,
-)
-from workbench.treatment.jar_tests import read_jar_tests
-from workbench.treatment.limits import available_limit_sets, combine_limits, load_limits, permit_limits
-from workbench.treatment.setpoint import SetpointDesign, design_setpoint
-from workbench.treatment.solubility import SpeciationResult, minimum_solubility, residual_curve, speciate
-from workbench.treatment.uncertainty import UncertaintyBand, uncertainty_band
-from workbench.treatment.water import Water
+from __future__ import annotations
+
+import importlib
+from typing import TYPE_CHECKING
+
+#: public name -> the module that defines it
+_SOURCES = {
+    "ConvergenceError": "workbench.errors",
+    "DataError": "workbench.errors",
+    "InputError": "workbench.errors",
+    "ModelRangeError": "workbench.errors",
+    "Scenario": "workbench.scenario",
+    "design_scenario": "workbench.scenario",
+    "read_scenario": "workbench.scenario",
+    "save_scenario": "workbench.scenario",
+    "ShiftFit": "workbench.treatment.calibration",
+    "calibrated_shift": "workbench.treatment.calibration",
+    "fit_solubility_shifts": "workbench.treatment.calibration",
+    "flag_jars": "workbench.treatment.calibration",
+    "overlay": "workbench.treatment.calibration",
+    "daily_table": "workbench.treatment.dose",
+    "dose_curve": "workbench.treatment.dose",
+    "dose_for_ph": "workbench.treatment.dose",
+    "fluoride_at_setpoint": "workbench.treatment.dose",
+    "raw_water_acidity": "workbench.treatment.dose",
+    "reagent_ceiling_ph": "workbench.treatment.dose",
+    "sludge_at_dose": "workbench.treatment.dose",
+    "read_jar_tests": "workbench.treatment.jar_tests",
+    "available_limit_sets": "workbench.treatment.limits",
+    "combine_limits": "workbench.treatment.limits",
+    "load_limits": "workbench.treatment.limits",
+    "permit_limits": "workbench.treatment.limits",
+    "SetpointDesign": "workbench.treatment.setpoint",
+    "design_setpoint": "workbench.treatment.setpoint",
+    "SpeciationResult": "workbench.treatment.solubility",
+    "minimum_solubility": "workbench.treatment.solubility",
+    "residual_curve": "workbench.treatment.solubility",
+    "speciate": "workbench.treatment.solubility",
+    "UncertaintyBand": "workbench.treatment.uncertainty",
+    "uncertainty_band": "workbench.treatment.uncertainty",
+    "Water": "workbench.treatment.water",
+}
+
+
+def __getattr__(name: str):
+    source = _SOURCES.get(name)
+    if source is None:
+        raise AttributeError(f"module 'workbench' has no attribute {name!r}")
+    value = getattr(importlib.import_module(source), name)
+    globals()[name] = value  # later look-ups do not come here
+    return value
+
+
+def __dir__() -> list[str]:
+    return sorted(set(globals()) | set(__all__))
+
+
+if TYPE_CHECKING:  # for type checkers and editors: the same names, imported eagerly
+    from workbench.errors import ConvergenceError, DataError, InputError, ModelRangeError
+    from workbench.scenario import Scenario, design_scenario, read_scenario, save_scenario
+    from workbench.treatment.calibration import (
+        ShiftFit,
+        calibrated_shift,
+        fit_solubility_shifts,
+        flag_jars,
+        overlay,
+    )
+    from workbench.treatment.dose import (
+        daily_table,
+        dose_curve,
+        dose_for_ph,
+        fluoride_at_setpoint,
+        raw_water_acidity,
+        reagent_ceiling_ph,
+        sludge_at_dose,
+    )
+    from workbench.treatment.jar_tests import read_jar_tests
+    from workbench.treatment.limits import available_limit_sets, combine_limits, load_limits, permit_limits
+    from workbench.treatment.setpoint import SetpointDesign, design_setpoint
+    from workbench.treatment.solubility import SpeciationResult, minimum_solubility, residual_curve, speciate
+    from workbench.treatment.uncertainty import UncertaintyBand, uncertainty_band
+    from workbench.treatment.water import Water
 
 __all__ = [
     "ConvergenceError",
