@@ -21,7 +21,10 @@ from __future__ import annotations
 import functools
 import inspect
 import os
+import subprocess
+import sys
 import threading
+import time
 from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
@@ -199,8 +202,6 @@ def _writable(arr: np.ndarray) -> np.ndarray:
 def compile_now() -> float:
     """Compile the kernel, or load it from numba's cache: one small solve in each mode (fixed pH and charge
     balance) through :func:`solve`. Returns the seconds it took."""
-    import time
-
     from workbench.chemistry import tableau
 
     t0 = time.perf_counter()
@@ -213,6 +214,108 @@ def compile_now() -> float:
         problem = Problem(tab, totals, ph, "davies", compiled=True)
         solve(problem, False, guess)
     return time.perf_counter() - t0
+
+
+# ---------------------------------------------------------------------------------------------------- first use
+#: the command that compiles the kernel into numba's cache (also what `make install` runs)
+COMPILE_COMMAND = (sys.executable, "-m", "workbench.chemistry.compiled_engine")
+COMPILING_MESSAGE = (
+    "workbench: the solver's compiled kernel is not in this installation's cache yet; it is being compiled in "
+    "the background (about a minute, once per installation). Until it is ready, results come from the numpy "
+    "engine: the same equations and checks, slower on large runs."
+)
+_LOCK = threading.Lock()
+_STATUS = {"ready": False, "job": None, "failed": None, "seconds": None}
+
+
+def ready() -> bool:
+    """Whether the kernel can run in this process now.
+
+    The first call loads the kernel when numba's cache holds it for this machine (well under a second) and
+    returns True. When it does not, it starts compiling it in a separate process (:data:`COMPILE_COMMAND`),
+    prints :data:`COMPILING_MESSAGE` once on stderr and returns False until the compiled kernel has been loaded
+    here; the solver uses the numpy engine meanwhile, so no result waits for the compiler. If the compiling
+    process fails, its last error line is printed once and the numpy engine keeps serving.
+    """
+    if _STATUS["ready"]:
+        return True
+    with _LOCK:
+        if _STATUS["ready"] or _STATUS["job"] is not None or _STATUS["failed"]:
+            return _STATUS["ready"]
+        if is_cached():
+            compile_now()  # loads it from the cache
+            _STATUS["ready"] = True
+            return True
+        print(COMPILING_MESSAGE, file=sys.stderr, flush=True)
+        job = threading.Thread(target=_compile_in_background, name="workbench-kernel-compile", daemon=True)
+        _STATUS["job"] = job
+        job.start()
+        return False
+
+
+def wait_until_ready(timeout: float | None = None) -> bool:
+    """Wait for a compile started by :func:`ready` (e.g. before timing the compiled engine); returns
+    :func:`ready`."""
+    job = _STATUS["job"]
+    if job is not None:
+        job.join(timeout)
+    return ready()
+
+
+def status() -> dict:
+    """``ready`` (bool), ``compiling`` (bool), ``failed`` (the error line or None) and ``seconds`` (the
+    background compile's time, once done)."""
+    job = _STATUS["job"]
+    return {
+        "ready": _STATUS["ready"],
+        "compiling": job is not None and job.is_alive(),
+        "failed": _STATUS["failed"],
+        "seconds": _STATUS["seconds"],
+    }
+
+
+def is_cached() -> bool:
+    """Whether numba's cache holds the kernel compiled for this machine and this source (read from numba's cache
+    index; False when that cannot be read, so that the kernel is then compiled in the background)."""
+    dispatcher = kernel.solve_points
+    try:
+        index = dispatcher._cache._cache_file._load_index()  # empty when missing or stale (source changed)
+        magic = dispatcher.targetctx.codegen().magic_tuple()  # this CPU and target
+        return any(key[1] == magic for key in index)
+    except Exception:  # numba's internals moved: compile in the background, which is always safe
+        return False
+
+
+def _compile_in_background() -> None:
+    started = time.perf_counter()
+    package_parent = os.path.dirname(os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
+    env = dict(os.environ)
+    env["PYTHONPATH"] = os.pathsep.join(p for p in (package_parent, env.get("PYTHONPATH")) if p)
+    try:
+        done = subprocess.run(
+            COMPILE_COMMAND, env=env, stdin=subprocess.DEVNULL, capture_output=True, text=True, check=False
+        )
+        failed = None if done.returncode == 0 else (done.stderr.strip().splitlines() or ["no message"])[-1]
+    except OSError as exc:
+        failed = str(exc)
+    if failed is not None:
+        _STATUS["failed"] = failed
+        print(
+            f"workbench: the solver's kernel could not be compiled ({failed}); the numpy engine keeps serving.",
+            file=sys.stderr,
+            flush=True,
+        )
+        return
+    compile_now()  # loads what the other process cached (or compiles here if it could not cache)
+    _STATUS["seconds"] = time.perf_counter() - started
+    _STATUS["ready"] = True
+
+
+def _forget_job_in_child() -> None:
+    _STATUS["job"] = None  # a forked child has no compile thread; it checks the cache again when asked
+
+
+os.register_at_fork(after_in_child=_forget_job_in_child)
 
 
 if __name__ == "__main__":  # `make install` runs it: python -m workbench.chemistry.compiled_engine

@@ -80,7 +80,10 @@ def solve(
     engine : {"compiled", "numpy"}
         ``"compiled"`` (default): the compiled per-point kernel (:mod:`workbench.chemistry.kernel`), with the
         numpy solver taking any point the kernel gives up; ``"numpy"``: the numpy solver alone (the reference
-        the kernel is tested against). Both verify every answer in the same way.
+        the kernel is tested against). Both verify every answer in the same way. In a process whose
+        installation has no compiled kernel yet, ``"compiled"`` calls are served by the numpy engine while the
+        kernel is compiled in the background (:func:`workbench.chemistry.compiled_engine.ready`); their results
+        agree with the kernel's to 1e-8 (tests/test_kernel.py), not to the last digit.
 
     Returns
     -------
@@ -106,6 +109,9 @@ def solve(
         return numpy_engine.solve(tab, totals, ph_arr, activity, guess, log_k, log_ks, start).finish()
     # (numba is imported at the first compiled solve, not with this module)
     from workbench.chemistry import compiled_engine
+
+    if not compiled_engine.ready():  # being compiled in the background: the numpy engine serves meanwhile
+        return numpy_engine.solve(tab, totals, ph_arr, activity, guess, log_k, log_ks, start).finish()
 
     # the compiled kernel, which verifies what it returns; the points it gives up go to the numpy engine, whose
     # answers are verified in the same way (State.finish)
