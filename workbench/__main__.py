@@ -1,11 +1,15 @@
-"""Command line: ``python -m workbench lab [--port N] [--no-browser]`` and
-``python -m workbench figures SCENARIO.toml --out DIR [--formats png,svg,pdf,html]``.
+"""Command line: ``python -m workbench lab [--port N] [--no-browser]``,
+``python -m workbench figures SCENARIO.toml --out DIR [--formats png,svg,pdf,html]`` and
+``python -m workbench demo DIR``.
 
 ``lab`` starts JupyterLab on the repository's ``notebooks/`` folder, bound to 127.0.0.1 and protected by a
-fresh random token, opening the setpoint-design notebook, and prints the URL (with the token) to open.
+fresh random token, opening the setpoint-design notebook, and prints the URL (with the token) to open once the
+server answers.
 ``figures`` computes a scenario's figure pack (figures with captions, tables, cautions, sources) and writes it
 into DIR, printing each file written; a bad scenario or option prints the message (field, value, what is
 allowed) and exits with status 2; a missing browser for PNG/SVG/PDF exits with status 1.
+``demo`` copies the demo scenario and the demo jar-test file (an invented plant) into DIR, created if needed, so
+that an installed copy has files to start from; it never replaces a file that differs (exit status 2).
 Subcommands are registered in :func:`build_parser`.
 Heavy packages (JupyterLab, plotly, ipywidgets) are imported only inside the subcommand that needs them.
 """
@@ -17,7 +21,12 @@ import os
 import secrets
 import socket
 import sys
+import threading
+import time
+import urllib.error
+import urllib.request
 from collections.abc import Sequence
+from pathlib import Path
 
 from workbench._paths import notebooks_dir
 
@@ -66,12 +75,73 @@ def _run_lab(args: argparse.Namespace) -> int:
     # Kernels inherit this environment; without bytecode every import would recompile at each start.
     os.environ.pop("PYTHONDONTWRITEBYTECODE", None)
     sys.dont_write_bytecode = False
-    print(f"Workbench: http://{HOST}:{port}/lab/tree/{START_NOTEBOOK}?token={token}", flush=True)
-    print("Stop with Ctrl+C (twice).", flush=True)
+    print(
+        f"Workbench: starting JupyterLab on {HOST}:{port}; its address follows once it answers.", flush=True
+    )
+    url = f"http://{HOST}:{port}/lab/tree/{START_NOTEBOOK}?token={token}"
+    threading.Thread(target=_announce_when_answering, args=(port, url), daemon=True).start()
 
     from jupyterlab.labapp import LabApp  # heavy: only when the server is really started
 
     LabApp.launch_instance(argv=argv)
+    return 0
+
+
+def _announce_when_answering(port: int, url: str, *, timeout_s: float = 300.0) -> bool:
+    """Print the address once the server answers on ``port`` (its ``/api`` status page); returns whether it
+    did within ``timeout_s``."""
+    deadline = time.monotonic() + timeout_s
+    while time.monotonic() < deadline:
+        try:
+            with urllib.request.urlopen(f"http://{HOST}:{port}/api", timeout=2) as reply:
+                if reply.status == 200:
+                    print(f"Workbench: {url}", flush=True)
+                    print("Stop with Ctrl+C (twice).", flush=True)
+                    return True
+        except (urllib.error.URLError, OSError):
+            pass
+        time.sleep(0.2)
+    print(
+        f"workbench lab: the server did not answer on {HOST}:{port} within {timeout_s:.0f} s", file=sys.stderr
+    )
+    return False
+
+
+def _run_demo(args: argparse.Namespace) -> int:
+    """Copy the demo scenario and jar-test file into ``args.dir``; print each file written."""
+    from workbench.scenario import demo_scenario_path
+    from workbench.treatment.jar_tests import demo_jar_tests_path
+
+    out = Path(args.dir)
+    sources = [demo_scenario_path(), demo_jar_tests_path()]
+    if out.exists() and not out.is_dir():
+        print(f"workbench demo: {out} is a file; a folder is required", file=sys.stderr)
+        return 2
+    clashes = [
+        out / s.name
+        for s in sources
+        if (out / s.name).exists() and (out / s.name).read_bytes() != s.read_bytes()
+    ]
+    if clashes:
+        print(
+            f"workbench demo: {', '.join(map(str, clashes))} already exists and differs; nothing was copied "
+            "(move it away or choose another folder)",
+            file=sys.stderr,
+        )
+        return 2
+    out.mkdir(parents=True, exist_ok=True)
+    for source in sources:
+        target = out / source.name
+        if not target.exists():
+            with open(target, "xb") as f:  # never replaces a file
+                f.write(source.read_bytes())
+        print(target)
+    scenario = out / sources[0].name
+    print(
+        f"Next: python -m workbench figures {scenario} --out {out / 'figure_pack'}   "
+        f"(or in a notebook: SetpointPanel(read_scenario({str(scenario)!r})))",
+        flush=True,
+    )
     return 0
 
 
@@ -138,6 +208,13 @@ def build_parser() -> argparse.ArgumentParser:
         help="comma-separated figure formats (default: png,svg,pdf,html)",
     )
     figures.set_defaults(handler=_run_figures)
+
+    demo = commands.add_parser(
+        "demo",
+        help="copy the demo scenario and jar-test file (an invented plant) into a folder to start from",
+    )
+    demo.add_argument("dir", help="folder to copy into (created if needed; no differing file is replaced)")
+    demo.set_defaults(handler=_run_demo)
     return parser
 
 

@@ -175,6 +175,8 @@ def equilibrium_within_model(
 
 
 MAX_SHIFT_LOG = 5.0
+PH_LABEL_DECIMALS = 9  # pH index labels: a value this close to a short decimal is shown as it (ph_index)
+PH_LABEL_SNAP = 1e-12  # [pH units]
 
 
 def check_shift(water: Water, solubility_shift) -> dict[str, float]:
@@ -213,6 +215,19 @@ def metal_mg_l(water: Water, tab, eq) -> dict[str, np.ndarray]:
     }
 
 
+def ph_index(ph: np.ndarray) -> pd.Index:
+    """The ``pH`` index of a curve computed at the pH values ``ph``.
+
+    A value within PH_LABEL_SNAP (1e-12) of a number with at most PH_LABEL_DECIMALS (9) decimals is labelled with
+    that number: the float noise of a grid such as ``np.arange(6, 12.01, 0.1)`` (9.500000000000007) is dropped,
+    so ``curve.loc[9.5]`` finds its row. Every other value is its own label. Only the label changes: each row is
+    computed at the pH given, which differs from its label by at most 1e-12 pH units.
+    """
+    ph = np.asarray(ph, dtype=float)
+    short = np.round(ph, PH_LABEL_DECIMALS)
+    return pd.Index(np.where(np.abs(short - ph) <= PH_LABEL_SNAP, short, ph), name="pH")
+
+
 def residual_curve(
     water: Water, ph, *, solids: str = "fresh", activity: str = "davies", solubility_shift=None
 ) -> pd.DataFrame:
@@ -233,7 +248,8 @@ def residual_curve(
     Returns
     -------
     pandas.DataFrame
-        Index ``pH``; one column per metal key: dissolved metal. [mg/L]
+        Index ``pH`` (the values asked for, float noise such as 9.500000000000007 shown as 9.5: :func:`ph_index`);
+        one column per metal key: dissolved metal. [mg/L]
         ``attrs["warnings"]`` lists where the model is stretched.
     """
     phs = as_array(ph)
@@ -244,10 +260,11 @@ def residual_curve(
     for key, held_values in metal_mg_l(water, tab, eq).items():
         values[key] = np.full(phs.size, np.nan)
         values[key][reach.held] = held_values
-    df = pd.DataFrame(values, index=pd.Index(phs, name="pH"))
+    labels = ph_index(phs)
+    df = pd.DataFrame(values, index=labels)
     df.attrs["units"] = "mg/L dissolved"
     df.attrs["warnings"] = model_warnings(water, tab, eq) + ([reach.note(phs)] if not reach.complete else [])
-    df.attrs["beyond_model_ph"] = phs[~reach.held].tolist()
+    df.attrs["beyond_model_ph"] = labels[~reach.held].tolist()  # as labelled in the index
     return df
 
 

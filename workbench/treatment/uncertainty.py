@@ -20,7 +20,7 @@ import pandas as pd
 
 from workbench.chemistry import database, solver
 from workbench.errors import InputError
-from workbench.treatment.solubility import equilibrium_within_model, metal_mg_l
+from workbench.treatment.solubility import equilibrium_within_model, metal_mg_l, ph_index
 from workbench.treatment.water import Water, as_array
 
 HELD_SOURCES = ("iapws_r11_07",)
@@ -142,7 +142,7 @@ def uncertainty_band(
     )
     grid = asked[reach.held]  # the band stops where the model stops, as the curves do
     metals = list(water.metals_mg_l)
-    nominal = pd.DataFrame(metal_mg_l(water, tab, nominal_eq), index=pd.Index(grid, name="pH"))[metals]
+    nominal = pd.DataFrame(metal_mg_l(water, tab, nominal_eq), index=ph_index(grid))[metals]
     data = database.load()
     base = data.log_beta(water.temperature_c)
     shift = base[tab.solid_index] - tab.log_ks  # the calibration shift carried into every sample
@@ -165,7 +165,7 @@ def uncertainty_band(
         if progress is not None:
             progress(stop, samples)
     qs = np.quantile(out, q, axis=0)
-    whole = pd.Index(asked, name="pH")
+    whole = ph_index(asked)
     frames = [pd.DataFrame(qs[i], index=nominal.index, columns=metals).reindex(whole) for i in range(3)]
     prob = None
     if limits is not None and not isinstance(limits, pd.Series):
