@@ -100,3 +100,22 @@ def test_the_address_is_printed_once_the_server_answers_and_not_before(capsys):
 
 def test_a_server_that_never_answers_is_reported():
     assert _announce_when_answering(_free_port(), "URL", timeout_s=0.5) is False
+
+
+# ---------------------------------------------------------------------------------------------------- warm kernel
+def test_the_lab_servers_python3_kernel_warms_up_at_start(tmp_path, monkeypatch):
+    """`python -m workbench lab` puts a python3 kernel of its own first on JUPYTER_PATH: the usual one, running
+    warm_up at start."""
+    from jupyter_client.kernelspec import KernelSpecManager
+
+    from workbench.widgets import warm
+
+    native = KernelSpecManager().get_kernel_spec("python3").to_dict()
+    warm.kernel_dir(tmp_path, native)
+    monkeypatch.setenv("JUPYTER_PATH", str(tmp_path))
+    spec = KernelSpecManager().get_kernel_spec("python3")
+    assert spec.argv[: len(native["argv"])] == native["argv"]
+    assert spec.argv[-1] == f"--IPKernelApp.exec_lines={warm.WARM_UP_LINE}"
+    assert spec.display_name == native["display_name"]
+    exec(warm.WARM_UP_LINE, {})  # what the kernel runs: no error, nothing left behind
+    assert warm.warm_up() >= 0.0

@@ -21,6 +21,7 @@ import os
 import secrets
 import socket
 import sys
+import tempfile
 import threading
 import time
 import urllib.error
@@ -81,9 +82,17 @@ def _run_lab(args: argparse.Namespace) -> int:
     url = f"http://{HOST}:{port}/lab/tree/{START_NOTEBOOK}?token={token}"
     threading.Thread(target=_announce_when_answering, args=(port, url), daemon=True).start()
 
-    from jupyterlab.labapp import LabApp  # heavy: only when the server is really started
+    from jupyter_client.kernelspec import KernelSpecManager  # heavy: only when the server is really started
+    from jupyterlab.labapp import LabApp
 
-    LabApp.launch_instance(argv=argv)
+    from workbench.widgets.warm import kernel_dir
+
+    # the notebooks' python3 kernel, warmed at start (workbench.widgets.warm), for this server only
+    with tempfile.TemporaryDirectory(prefix="workbench-kernel-") as folder:
+        native = KernelSpecManager().get_kernel_spec("python3").to_dict()
+        kernel_dir(Path(folder), native)
+        os.environ["JUPYTER_PATH"] = os.pathsep.join(p for p in (folder, os.environ.get("JUPYTER_PATH")) if p)
+        LabApp.launch_instance(argv=argv)
     return 0
 
 

@@ -320,6 +320,8 @@ os.register_at_fork(after_in_child=_forget_job_in_child)
 
 if __name__ == "__main__":  # `make install` runs it: python -m workbench.chemistry.compiled_engine
     if is_cached():
-        print(f"solver kernel already compiled: loaded from numba's cache in {compile_now():.1f} s", flush=True)
+        print(
+            f"solver kernel already compiled: loaded from numba's cache in {compile_now():.1f} s", flush=True
+        )
     else:
         print(f"solver kernel compiled and cached in {compile_now():.1f} s", flush=True)
