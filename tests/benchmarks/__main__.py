@@ -284,9 +284,9 @@ def case_first_result():
             else f"target 3 s; messages: {messages}; kernel ready: {ready}",
         ),
         (
-            "8 make install's compile step (the same compile)",
+            "8 kernel compile (a step of make install)",
             float(compile_s),
-            "shown by make install with its time",
+            "the same compile; make install prints it with its time",
         ),
     ]
 
@@ -340,7 +340,7 @@ def case_panel_ready(repeat):
             else f"no target: a plain kernel (Voila, another server) pays the imports in the cell; started in "
             f"{started:.1f} s"
         )
-        rows.append((f"9 setpoint panel drawn after its cell runs ({kind} kernel)", cell_s, note))
+        rows.append((f"9 panel drawn after its cell runs, {kind} kernel", cell_s, note))
     return rows
 
 
@@ -513,10 +513,10 @@ def main(argv=None) -> int:
     rows += case_import(3)
     rows += case_first_result()
     rows += case_panel_ready(1 if args.quick else 3)
+    rows += case_make_test(args.quick)
     rows += case_install()
     rows += case_name()
     rows += case_demo_and_lab()
-    rows += case_make_test(args.quick)
     print(f"{'case':52s} {'time':>12s}  note")
     for name, seconds, note in rows:
         if seconds != seconds:  # a check, not a time
