@@ -3,6 +3,10 @@
 The check curves were computed before this code by a separate closed-form script from the same published
 constants; agreement to 0.002 log units (the file's printed precision is 0.001) shows the data tables and the
 solver reproduce that calculation.
+
+The file's Cu(II)_fresh curve was computed with the IUPAC crystalline Cu(OH)2 (8.67), which is no longer the fresh
+solid (data/thermo/README.md: the fresh precipitate of Hidmi & Edwards 1999 replaced it); the copper hydrolysis set
+is still checked by the Cu(II)_selected curve and the fresh precipitate by tests/test_closed_form.py.
 """
 
 import csv
@@ -17,7 +21,6 @@ REF = Path(__file__).parent / "reference" / "check_curves_selected_fresh.csv"
 # column label -> (component, solid choice, solid name)
 SETS = {
     "Cu(II)_selected": ("Cu^2+", "aged", "CuO (tenorite)"),
-    "Cu(II)_fresh": ("Cu^2+", "fresh", "Cu(OH)2"),
     "Ni(II)_selected": ("Ni^2+", "aged", "beta-Ni(OH)2 (theophrastite)"),
     "Ni(II)_fresh": ("Ni^2+", "fresh", "Ni(OH)2 (microcrystalline)"),
     "Zn(II)_selected": ("Zn^2+", "aged", "ZnO (zincite)"),

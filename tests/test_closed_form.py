@@ -28,11 +28,11 @@ CASES = {
         11.12,
         {(1, 1): -8.96, (1, 2): -17.82, (1, 3): -28.05, (1, 4): -40.41, (2, 1): -7.9},
     ),
-    "Cu fresh": (  # Powell et al. 2007 (IUPAC Cu report)
+    "Cu fresh": (  # Powell et al. 2007 (IUPAC Cu report) hydrolysis; fresh Cu(OH)2 9.36 (Hidmi & Edwards 1999)
         "Cu^2+",
         2,
-        "Cu(OH)2",
-        8.67,
+        "Cu(OH)2 (fresh precipitate)",
+        9.36,
         {
             (1, 1): -7.95,
             (1, 2): -16.2,

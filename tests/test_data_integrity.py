@@ -8,7 +8,7 @@ import periodictable
 import pytest
 
 from workbench._paths import data_dir
-from workbench.chemistry import database
+from workbench.chemistry import database, tableau
 from workbench.chemistry.formula import element_counts, molar_mass
 
 DATA = data_dir()
@@ -184,3 +184,51 @@ def test_solid_forms_cover_each_metal():
         has = data.is_solid & (data.composition[:, j] > 0)
         assert (has & np.isin(forms, ("fresh", "both"))).any(), comp
         assert (has & np.isin(forms, ("aged", "both"))).any(), comp
+
+
+# data/thermo/README.md §8: the carbonates that precipitate within a day at plant conditions (Köhler et al. 2007;
+# Mater. Res. Bull. 39 (2004) 1939; Böttcher 1995) are in the default set; smithsonite (hydrothermal synthesis) and
+# malachite (an amorphous hydroxycarbonate first, for days to weeks: Angel et al. 2021) are not
+DOCUMENTED_FRESH_CARBONATES = {
+    "CaCO3 (calcite)",
+    "CdCO3 (otavite)",
+    "PbCO3 (cerussite)",
+    "1/3 Pb3(CO3)2(OH)2 (hydrocerussite)",
+    "1/5 Zn5(OH)6(CO3)2 (hydrozincite)",
+    "NiCO3 (precipitated; phase not stated)",
+    "CoCO3 (precipitated; phase not stated)",
+    "MnCO3 (rhodochrosite)",
+    "FeCO3 (siderite)",
+    "Ag2CO3",
+}
+DOCUMENTED_AGED_ONLY_CARBONATES = {"ZnCO3 (smithsonite)", "1/2 Cu2(OH)2CO3 (malachite)"}
+
+
+def test_the_default_solids_are_the_documented_fresh_set():
+    data = database.load()
+    solids = [r for r in data.rows if r.table == "solids"]
+    carbonates = {r.name for r in solids if "CO3" in r.formula}
+    fresh = {r.name for r in solids if r.form in ("fresh", "both")}
+    assert carbonates & fresh == DOCUMENTED_FRESH_CARBONATES
+    assert carbonates - fresh == DOCUMENTED_AGED_ONLY_CARBONATES
+    readme = (DATA / "thermo" / "README.md").read_text(encoding="utf-8")
+    section = readme[readme.index("## 8. Fresh or crystalline") :]
+    for word in (
+        "Otavite",
+        "Cerussite",
+        "hydrocerussite",
+        "Hydrozincite",
+        "Smithsonite",
+        "Malachite",
+        "Rhodochrosite",
+    ):
+        assert word in section
+    # the tableau the core builds by default admits exactly these
+    tab = tableau.build(("Cu^2+", "Zn^2+", "Pb^2+", "Cd^2+", "CO3^2-"), 25.0, "fresh")
+    assert "ZnCO3 (smithsonite)" not in tab.solids and "1/2 Cu2(OH)2CO3 (malachite)" not in tab.solids
+    assert {
+        "1/5 Zn5(OH)6(CO3)2 (hydrozincite)",
+        "CdCO3 (otavite)",
+        "1/3 Pb3(CO3)2(OH)2 (hydrocerussite)",
+    } <= set(tab.solids)
+    assert "Cu(OH)2 (fresh precipitate)" in tab.solids and "Cu(OH)2 (crystalline)" not in tab.solids

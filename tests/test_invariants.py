@@ -94,7 +94,7 @@ def test_scalar_and_array_ph_agree():
 def test_speciate_reports_solids_and_charge_balance():
     water = WATERS["demo"]
     sp = wb.speciate(water, 9.0)
-    assert "Cu(OH)2" in sp.solids.index and (sp.solids["mg_l"] > 0).all()
+    assert "Cu(OH)2 (fresh precipitate)" in sp.solids.index and (sp.solids["mg_l"] > 0).all()
     assert set(sp.saturation.columns) == {"saturation_index", "present"}
     assert 0.01 < sp.ionic_strength_mol_l < 0.1
     # holding pH 9 in this water needs base: the strong-base residual is positive

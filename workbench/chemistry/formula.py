@@ -1,7 +1,8 @@
 """Chemical formulas: element counts and molar masses.
 
 Handles the formulas used in data/: element symbols with counts, parentheses, fractional counts
-(``CrO1.5``) and hydrate dots (``CaSO4.2H2O``). Charges written as ``^2+`` or a trailing ``+``/``-`` and
+(``CrO1.5``), hydrate dots (``CaSO4.2H2O``) and a leading fraction for a solid's unit as its reaction writes it
+(``1/3 Pb3(CO3)2(OH)2``: one Pb). Charges written as ``^2+`` or a trailing ``+``/``-`` and
 phase tags such as ``(s)``, ``(aq)``, ``(am)`` are ignored.
 """
 
@@ -31,13 +32,18 @@ def element_counts(formula: str) -> Counter:
         If the formula contains characters that are not elements, counts or parentheses.
     """
     total: Counter = Counter()
-    for part_index, part in enumerate(re.split(r"\.(?=\d*[A-Z])", strip_charge(formula))):
+    text = strip_charge(formula)
+    unit = re.match(r"^(\d+)/(\d+)\s+(.+)$", text)  # a formula unit with its coefficient: "1/3 Pb3(CO3)2(OH)2"
+    scale = 1.0
+    if unit:
+        scale, text = int(unit.group(1)) / int(unit.group(2)), unit.group(3)
+    for part_index, part in enumerate(re.split(r"\.(?=\d*[A-Z])", text)):
         mult = 1.0
         m = re.match(r"^(\d+(?:\.\d+)?)(.*)$", part)
         if m and part_index > 0:
             mult, part = float(m.group(1)), m.group(2)
         for el, n in _parse_group(part, formula).items():
-            total[el] += n * mult
+            total[el] += n * mult * scale
     return total
 
 
