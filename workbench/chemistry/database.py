@@ -7,6 +7,10 @@ ionic strength. This module is the one place where they are transformed:
    ``log K0 = log Kc + sum(nu_i * log10 gamma_i(I))`` (products positive), at the row's temperature.
 2. Temperature: a row measured away from 25 C is brought to 25 C with the van 't Hoff equation when its reaction
    enthalpy is published; otherwise it is kept as published and listed by :meth:`ThermoData.unadjusted_rows`.
+   At the water's temperature, a row uses its published temperature function, else the van 't Hoff equation with
+   its published enthalpy, else, for a hydrolysis reaction or the dissolution of a hydroxide or oxide, the
+   estimate of :meth:`ThermoData.row_log_k` (the constant of the reaction written with OH- held), else its 25 C
+   value (listed by :meth:`ThermoData.rows_without_enthalpy`).
 3. Direction: each row defines one new species (or solid) from components, H2O and species defined in earlier
    rows. Because that is linear, the formation constant of every species from components is a fixed linear
    combination of row constants, ``log beta = L @ log K_rows``; the matrix L is built once, so the constants at
@@ -96,6 +100,8 @@ class ThermoData:
     molar_mass_g_mol: np.ndarray = None
     t_functions: dict[int, tuple[float, ...]] = field(default_factory=dict)
     forms: list[str] = field(default_factory=list)
+    hydrolysis_release: np.ndarray = None  # per row: H+ released by a hydrolysis/hydroxide row (w), else 0
+    estimated_water: np.ndarray = None  # the same where the estimate of row_log_k is used (no enthalpy), else 0
 
     def index(self, name: str) -> int:
         """Position of a species, solid or component name in :attr:`names`."""
@@ -105,12 +111,29 @@ class ThermoData:
             raise KeyError(f"no species, solid or component named {name!r} in data/thermo") from None
 
     def row_log_k(self, temperature_c: float) -> np.ndarray:
-        """log10 K of every row (as written) at a temperature, I = 0. [-]"""
+        """log10 K of every row (as written) at a temperature, I = 0. [-]
+
+        Rows without a published enthalpy or temperature function that are hydrolysis reactions of one cation, or
+        dissolutions of its hydroxide or oxide (only that cation, H+, OH- and H2O take part), are estimated by
+        holding the constant of the reaction written with OH- instead of H+ (its enthalpy and heat capacity taken
+        as zero):
+
+        .. math:: \\log K(T) = \\log K(25) + w\\,[\\log K_w(T) - \\log K_w(25)]
+
+        with w the H+ the reaction releases as written (negative when it takes H+ up) and Kw from IAPWS R11-07.
+        Baes & Mesmer (1981, Am. J. Sci. 281, 935) found the enthalpy of the first hydrolysis step "always positive
+        and usually near the enthalpy of dissociation of water" and the solid <=> M(OH)z(aq) equilibrium, which
+        sets the minimum solubility, to depend little on temperature; this estimate is exact for both in that
+        limit. Its error against every row with a published enthalpy is tested
+        (tests/test_temperature.py): at 5 and 50 C within 0.45 log units for first hydrolysis steps and within
+        0.5 log units per H+ released for every other reaction (data/thermo/README.md, section 9).
+        """
         t = float(temperature_c)
         out = self._row_log_k25.copy()
         if abs(t - 25.0) < 1e-12:
             return out
         out = wp.van_t_hoff(out, np.nan_to_num(self._row_dh), t)
+        out += self.estimated_water * (float(wp.pkw(25.0)) - float(wp.pkw(t)))
         for i, coef in self.t_functions.items():
             out[i] = _t_function(coef, t)
         for i in self._kw_rows:
@@ -139,9 +162,17 @@ class ThermoData:
         ]
 
     def rows_without_enthalpy(self) -> list[Row]:
-        """Rows without a published reaction enthalpy or temperature function (held constant with temperature)."""
+        """Rows without a published reaction enthalpy, temperature function or estimate (held at 25 C)."""
         tf = {self.rows[i].name for i in self.t_functions} | {self.rows[i].name for i in self._kw_rows}
-        return [r for r in self.rows if not math.isfinite(r.delta_h_kj_mol) and r.name not in tf]
+        return [
+            r
+            for i, r in enumerate(self.rows)
+            if not math.isfinite(r.delta_h_kj_mol) and r.name not in tf and self.estimated_water[i] == 0
+        ]
+
+    def estimated_rows(self) -> list[Row]:
+        """Rows whose temperature dependence is estimated (hydrolysis, hydroxides, oxides; see row_log_k)."""
+        return [r for i, r in enumerate(self.rows) if self.estimated_water[i] != 0]
 
 
 def _t_function(coef: tuple[float, ...], temperature_c: float) -> float:
@@ -240,6 +271,7 @@ def _resolve(data: ThermoData, weights: dict[str, float], thermo: Path) -> None:
     maps = [np.zeros(nrow) for _ in data.components]
     forms = [""] * m
     log_k25 = np.empty(nrow)
+    hydrolysis_w = np.zeros(nrow)
     for i, row in enumerate(data.rows):
         where = f"data/thermo/{row.table}.csv, {row.name!r}"
         try:
@@ -268,6 +300,7 @@ def _resolve(data: ThermoData, weights: dict[str, float], thermo: Path) -> None:
             rmap -= sign * v * r_s
         z = float(comp @ data.charges)
         log_k25[i] = _to_standard(row, nu, known, data.charges, target, z)
+        hydrolysis_w[i] = _hydrolysis_water(nu, known, comp, target, data.charges)
         name = row.name
         if row.table in ("aqueous", "gases"):
             known[target] = (comp, water, rmap)
@@ -301,6 +334,31 @@ def _resolve(data: ThermoData, weights: dict[str, float], thermo: Path) -> None:
         if idx is None:
             raise DataError(f"temperature_functions.csv: no {r['table']} row named {r['name']!r}")
         data.t_functions[idx] = tuple(float(r[c]) for c in "abcde")
+    published = np.array([math.isfinite(r.delta_h_kj_mol) for r in data.rows])
+    held = np.zeros(nrow, bool)
+    held[list(data.t_functions)] = True
+    held[data._kw_rows] = True
+    data.hydrolysis_release = hydrolysis_w
+    data.estimated_water = np.where(published | held, 0.0, hydrolysis_w)
+
+
+def _hydrolysis_water(
+    nu: dict, known: dict, comp_target: np.ndarray, target: str, charges: np.ndarray
+) -> float:
+    """H+ released by a row that is a hydrolysis reaction of one cation or the dissolution of its hydroxide or oxide
+    (only that cation, H+, OH- and H2O take part); 0 for any other row. Polynuclear species are estimated too: held
+    in their H+ form while the mononuclear species and the solids move, they would swamp the cation at low
+    temperature (13 Al^3+ of Al13O4(OH)24^7+ at 5 C), whereas the estimate keeps the pattern of species along pOH."""
+    cation = None
+    for s in nu:
+        if s in ("H2O", "H+", "OH-"):
+            continue
+        comp = comp_target if s == target else known[s][0]
+        others = np.flatnonzero(comp[1:]) + 1  # components other than H+
+        if others.size != 1 or charges[others[0]] <= 0 or (cation is not None and others[0] != cation):
+            return 0.0
+        cation = others[0]
+    return float(nu.get("H+", 0.0)) if cation is not None else 0.0
 
 
 def _to_standard(row: Row, nu: dict, known: dict, charges: np.ndarray, target: str, z_target: float) -> float:

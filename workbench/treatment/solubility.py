@@ -484,13 +484,7 @@ def model_warnings(water: Water, tab, eq) -> list[str]:
             + ". Treat the affected metals' residuals as indicative."
         )
     if abs(water.temperature_c - 25.0) > 2.0:
-        used = set(tab.species_index) | set(tab.solid_index)
-        missing = [r.name for r in data.rows_without_enthalpy() if data.index(r.name) in used]
-        if missing:
-            out.append(
-                f"{len(missing)} constants in this system have no published reaction enthalpy and are held at their "
-                f"25 °C values at {water.temperature_c:g} °C (e.g. {', '.join(missing[:5])})."
-            )
+        out += temperature_warnings(water.temperature_c, tab)
     if "Fe(II)" in water.metals_mg_l:
         out.append(
             "Fe(II) is treated as staying ferrous; in an aerated tank it oxidises to Fe(III), "
@@ -500,5 +494,32 @@ def model_warnings(water: Water, tab, eq) -> list[str]:
         out.append(
             "Mn(II) oxidation to Mn(III/IV) oxides (which lowers residual Mn in aerated lime treatment) "
             "is not modelled."
+        )
+    return out
+
+
+def _names(names: list[str], shown: int = 6) -> str:
+    more = f" and {len(names) - shown} more" if len(names) > shown else ""
+    return ", ".join(names[:shown]) + more
+
+
+def temperature_warnings(temperature_c: float, tab) -> list[str]:
+    """Which constants of this system move with temperature by an estimate, and which are held at 25 °C."""
+    data = database.load()
+    used = set(tab.species_index) | set(tab.solid_index)
+    estimated = [r.name for r in data.estimated_rows() if data.index(r.name) in used]
+    held = [r.name for r in data.rows_without_enthalpy() if data.index(r.name) in used]
+    out = []
+    if estimated:
+        out.append(
+            f"At {temperature_c:g} °C, {len(estimated)} hydrolysis constants and hydroxide/oxide solubilities of "
+            f"this system have no published enthalpy and are estimated ({_names(estimated)}): each reaction "
+            "written with OH- is held at its 25 °C constant (Baes & Mesmer 1981); against the published enthalpies "
+            "this is within about 0.5 log units per OH- at 5 or 50 °C (data/thermo/README.md, section 9)."
+        )
+    if held:
+        out.append(
+            f"{len(held)} other constants in this system have no published reaction enthalpy and are held at their "
+            f"25 °C values at {temperature_c:g} °C ({_names(held)})."
         )
     return out
