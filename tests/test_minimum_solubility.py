@@ -74,3 +74,20 @@ def test_metal_that_never_precipitates_is_reported_plainly():
     row = wb.minimum_solubility(water).loc["Ag"]
     assert row["solid"] == "none" and np.isnan(row["ph_min"]) and row["residual_mg_l"] == 0.05
     assert "stays dissolved" in row["note"]
+
+
+def test_a_chelated_metal_is_reported_with_the_share_its_complexant_holds():
+    # EDTA's copper chelate (log K 18.80 at 20 °C, 0.1 M; Martell & Smith, read through Harvey's appendix) holds
+    # copper far above the hydroxide's solubility: the table must say so, and how much
+    water = wb.Water(metals_mg_l={"Cu": 20.0}, ph=4.0, edta_mg_l=30.0, sodium_mg_l=100.0)
+    table = wb.minimum_solubility(water)
+    note = table.loc["Cu", "note"]
+    assert "EDTA holds" in note and "complexant" in note
+    share = float(note.split("EDTA holds ")[1].split(" %")[0]) / 100
+    # 30 mg/L of the acid is 0.103 mmol/L of EDTA, 20 mg/L Cu is 0.315 mmol/L: the chelate alone is 6.5 mg/L Cu,
+    # so above the chelate the residual is nearly all chelate
+    cu_in_chelate = 30.0 / 292.24 * 63.546
+    assert table.loc["Cu", "residual_mg_l"] >= 0.9 * cu_in_chelate
+    assert share == pytest.approx(min(1.0, cu_in_chelate / table.loc["Cu", "residual_mg_l"]), abs=0.05)
+    plain = wb.minimum_solubility(wb.Water(metals_mg_l={"Cu": 20.0}, ph=4.0, sodium_mg_l=100.0))
+    assert "EDTA" not in plain.loc["Cu", "note"]

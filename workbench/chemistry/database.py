@@ -101,7 +101,9 @@ class ThermoData:
     t_functions: dict[int, tuple[float, ...]] = field(default_factory=dict)
     forms: list[str] = field(default_factory=list)
     hydrolysis_release: np.ndarray = None  # per row: H+ released by a hydrolysis/hydroxide row (w), else 0
-    estimated_water: np.ndarray = None  # the same where the estimate of row_log_k is used (no enthalpy), else 0
+    estimated_water: np.ndarray = (
+        None  # the same where the estimate of row_log_k is used (no enthalpy), else 0
+    )
 
     def index(self, name: str) -> int:
         """Position of a species, solid or component name in :attr:`names`."""

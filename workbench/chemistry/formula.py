@@ -33,7 +33,9 @@ def element_counts(formula: str) -> Counter:
     """
     total: Counter = Counter()
     text = strip_charge(formula)
-    unit = re.match(r"^(\d+)/(\d+)\s+(.+)$", text)  # a formula unit with its coefficient: "1/3 Pb3(CO3)2(OH)2"
+    unit = re.match(
+        r"^(\d+)/(\d+)\s+(.+)$", text
+    )  # a formula unit with its coefficient: "1/3 Pb3(CO3)2(OH)2"
     scale = 1.0
     if unit:
         scale, text = int(unit.group(1)) / int(unit.group(2)), unit.group(3)

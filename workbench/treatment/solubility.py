@@ -388,10 +388,10 @@ def minimum_solubility(
         res_min = float(min(fine[key][best], influent))
         comp = tab_f.component(METALS[key])
         has = (tab_f.b[:, comp] > 0) & (eq_f.solid_amount[best] > 0)
+        held_by = _complexant_note(tab_f, eq_f.conc[best], METALS[key], key)
         if influent <= 0 or not has.any():
-            rows.append(
-                (key, np.nan, influent, "none", np.nan, np.nan, influent, _none_note(influent, lo, hi))
-            )
+            note = "; ".join(n for n in (_none_note(influent, lo, hi), held_by) if n)
+            rows.append((key, np.nan, influent, "none", np.nan, np.nan, influent, note))
             continue
         amounts = np.where(has, eq_f.solid_amount[best] * tab_f.b[:, comp], 0.0)
         solid = tab_f.solids[int(np.argmax(amounts))]
@@ -405,11 +405,45 @@ def minimum_solubility(
                 f"lowest at the edge of the range where the model holds (pH {lo_held:g}-{hi_held:g}): "
                 "no minimum inside it"
             )
+        note = "; ".join(n for n in (note, held_by) if n)
         rows.append((key, ph_min, res_min, solid, low, high, influent, note))
     df = pd.DataFrame(rows, columns=["metal", *columns]).set_index("metal")
     df.attrs["warnings"] = model_warnings(water, tab, eq) + ([reach.note(full)] if not reach.complete else [])
     df.attrs["ph_range_held"] = (lo_held, hi_held)
     return df
+
+
+#: Complexing components and the names results give them.
+COMPLEXANTS = {"Y^4-": "EDTA", "Cit^3-": "citrate", "NH3": "ammonia"}
+COMPLEXED_SHARE_NOTED = (
+    0.1  # a complexant holding at least this share of a metal's dissolved residual is named
+)
+
+
+def complexed_share(tab, conc: np.ndarray, metal_component: str) -> dict[str, float]:
+    """Share of a metal's dissolved amount held in complexes with each complexant present (one point). [-]"""
+    m = tab.component(metal_component)
+    carrying = tab.a[:, m] > 0
+    total = float(conc[carrying] @ tab.a[carrying, m])
+    out = {}
+    for comp, name in COMPLEXANTS.items():
+        if comp not in tab.components or total <= 0:
+            continue
+        with_ligand = carrying & (tab.a[:, tab.component(comp)] > 0)
+        out[name] = float(conc[with_ligand] @ tab.a[with_ligand, m]) / total
+    return out
+
+
+def _complexant_note(tab, conc: np.ndarray, metal_component: str, key: str) -> str:
+    shares = complexed_share(tab, conc, metal_component)
+    named = [(n, f) for n, f in shares.items() if f >= COMPLEXED_SHARE_NOTED]
+    if not named:
+        return ""
+    parts = " and ".join(f"{name} holds {100 * f:.0f} %" for name, f in named)
+    return (
+        f"{parts} of the dissolved {key} here: the complexant, not the solid, sets the residual; remove or break "
+        "the complex (e.g. a low-pH split or a chelate breaker) before relying on precipitation"
+    )
 
 
 def _none_note(influent: float, lo: float, hi: float) -> str:
