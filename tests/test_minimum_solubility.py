@@ -6,33 +6,9 @@ import pytest
 import workbench as wb
 from workbench.scenario import demo_water
 
-# Each metal alone at 10 mg/L (lead at 60 mg/L: massicot alone leaves ~28 mg/L at best, Powell et al. 2009) in a
-# 0.01 M sodium sulfate background, fresh solids, no carbonate.
-# Expected ranges: EPA 625/8-80-003 (1980) companion figure of hydroxide solubility [memory, not re-read]:
-# Cr ~7.5-8.5, Cu ~9-10, Zn ~9-10, Pb ~9-10, Ni ~10-11, Cd ~11; Al from the classical analytical handbook table
-# (redissolution onset 7.8; precipitation complete 5.2) [secondary copy]. Widened where the published constants
-# make the bottom flat or uncertain, with the reason:
-RANGES = {
-    "Al": (5.5, 7.0, "handbook: complete 5.2, redissolves from 7.8"),
-    "Cr": (7.5, 9.5, "EPA ~7.5-8.5; bottom flat from 6.7 to 11.3 within 2x (Brown & Ekberg 2016 constants)"),
-    "Cu": (9.0, 10.5, "EPA ~9-10; vendor practice 8-9.5"),
-    "Zn": (9.0, 10.5, "EPA ~9-10; Pang et al. 2009: 99 % removal at 8.7-9.6"),
-    "Pb": (9.0, 11.0, "EPA ~9-10 (hydroxide only: Powell 2009 constants give 10.4-10.6)"),
-    "Ni": (9.5, 11.0, "EPA ~10-11; Nilsson 1971: >= 9.5; Ni(OH)3- uncertain by +/-1.7 log units (NEA 2005)"),
-    "Cd": (10.5, 12.5, "EPA ~11; bottom flat from 10.4 to 13.2 within 2x (Powell 2011 constants)"),
-}
-
-
-@pytest.mark.parametrize("metal", sorted(RANGES))
-def test_minimum_ph_in_published_range(metal):
-    lo, hi, why = RANGES[metal]
-    water = wb.Water(
-        metals_mg_l={metal: 60.0 if metal == "Pb" else 10.0}, ph=4.0, sodium_mg_l=460, sulfate_mg_l=960
-    )
-    table = wb.minimum_solubility(water)
-    ph_min = table.loc[metal, "ph_min"]
-    assert lo <= ph_min <= hi, f"{metal}: {ph_min} outside {lo}-{hi} ({why})"
-    assert table.loc[metal, "ph_low_2x"] <= ph_min <= table.loc[metal, "ph_high_2x"]
+# The published practice ranges of each metal's minimum pH that stood here were read from memory and widened to
+# admit the model's own answers: they could not fail. The model is checked against measured data in
+# tests/test_measured_data.py, against published temperature series in tests/test_temperature.py.
 
 
 def test_demo_water_every_metal_has_a_row_and_a_solid():
@@ -91,3 +67,12 @@ def test_a_chelated_metal_is_reported_with_the_share_its_complexant_holds():
     assert share == pytest.approx(min(1.0, cu_in_chelate / table.loc["Cu", "residual_mg_l"]), abs=0.05)
     plain = wb.minimum_solubility(wb.Water(metals_mg_l={"Cu": 20.0}, ph=4.0, sodium_mg_l=100.0))
     assert "EDTA" not in plain.loc["Cu", "note"]
+
+
+def test_iron_floc_warns_that_other_residuals_are_usually_lower():
+    # co-precipitation and adsorption on hydrous ferric oxide are not modelled (yet): the result must say so whenever
+    # ferric or aluminium hydroxide forms beside other metals
+    with_iron = wb.residual_curve(wb.Water(metals_mg_l={"Zn": 5.0, "Fe": 20.0}, ph=4.0), [8.0, 9.0])
+    assert any("co-precipitate" in w and "Zn" in w for w in with_iron.attrs["warnings"])
+    without = wb.residual_curve(wb.Water(metals_mg_l={"Zn": 5.0}, ph=4.0), [8.0, 9.0])
+    assert not any("co-precipitate" in w for w in without.attrs["warnings"])

@@ -519,6 +519,14 @@ def model_warnings(water: Water, tab, eq) -> list[str]:
         )
     if abs(water.temperature_c - 25.0) > 2.0:
         out += temperature_warnings(water.temperature_c, tab)
+    floc = _floc_formed(tab, eq)
+    others = [k for k in water.metals_mg_l if k not in ("Fe", "Al", "Fe(II)")]
+    if floc and others:
+        out.append(
+            f"{' and '.join(floc)} precipitate here. Metals adsorb on and co-precipitate with such floc, which this "
+            f"model does not include: real residuals of {', '.join(others)} are then usually lower than computed "
+            "(the computed values are conservative); confirm with jar tests."
+        )
     if "Fe(II)" in water.metals_mg_l:
         out.append(
             "Fe(II) is treated as staying ferrous; in an aerated tank it oxidises to Fe(III), "
@@ -529,6 +537,21 @@ def model_warnings(water: Water, tab, eq) -> list[str]:
             "Mn(II) oxidation to Mn(III/IV) oxides (which lowers residual Mn in aerated lime treatment) "
             "is not modelled."
         )
+    return out
+
+
+FLOC_COMPONENTS = {"Fe^3+": "Ferric hydroxide", "Al^3+": "Aluminium hydroxide"}
+
+
+def _floc_formed(tab, eq) -> list[str]:
+    """Names of the hydrous iron(III) and aluminium solids formed at any point."""
+    out = []
+    for comp, name in FLOC_COMPONENTS.items():
+        if comp not in tab.components:
+            continue
+        rows = tab.b[:, tab.component(comp)] > 0
+        if (eq.solid_amount[:, rows] > 0).any():
+            out.append(name)
     return out
 
 
