@@ -57,7 +57,9 @@ Cells
   0.02 (its own limit, even where a detection-limit column gives another). ``ND``, ``n.d.``, ``BDL``, ``<DL``,
   ``<MDL``, ``<LOD`` are censored at the row's detection limit (from a detection-limit column, else
   ``detection_limits_mg_l=``); with none, it is an error.
-- Excel: a formula cell without a saved result is refused (it is not "not measured").
+- Excel: a formula cell without a saved result is refused (it is not "not measured"). A workbook is checked
+  before it is read, against bounds on its unpacked size, shared strings, cells and declared dimensions
+  (:mod:`workbench.treatment.workbook_limits`); one beyond them is refused with the limit named.
 - Empty: not measured (no row in the output).
 - Refused, each with the row, the column, the value and what is expected: text, negative numbers, a result
   of 0 (write ``<DL``), above-range results such as ``>10``, a qualifier after the number.
@@ -80,7 +82,6 @@ import io
 import math
 import numbers
 import re
-import zipfile
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -91,9 +92,9 @@ import pandas as pd
 from workbench._paths import data_dir
 from workbench.errors import InputError
 from workbench.treatment.water import METALS, REFUSED_METALS
+from workbench.treatment.workbook_limits import MAX_UNPACKED_BYTES, check_workbook  # noqa: F401 (re-exported)
 
 MAX_FILE_BYTES = 20_000_000
-MAX_UNPACKED_BYTES = 200_000_000  # an .xlsx is a zip archive: its unpacked size is capped too
 MAX_ROWS = 10_000
 MAX_COLUMNS = 500
 
@@ -371,19 +372,10 @@ def _csv_table(source: str, payload: bytes | str, sep: str, encoding: str | None
 
 
 def _excel_table(source: str, payload: bytes, sheet: str | None) -> _Table:
+    # bounded before any work: unpacked size, shared strings, cells, declared dimensions (workbook_limits)
+    check_workbook(source, payload)
     import openpyxl  # a dependency of the package; imported here so the CSV path never needs it
 
-    try:
-        with zipfile.ZipFile(io.BytesIO(payload)) as archive:
-            unpacked = sum(info.file_size for info in archive.infolist())
-    except zipfile.BadZipFile:
-        raise InputError(source, "not an .xlsx archive", "an Excel .xlsx workbook is expected") from None
-    if unpacked > MAX_UNPACKED_BYTES:
-        raise InputError(
-            source,
-            f"{unpacked} bytes unpacked",
-            f"workbooks up to {MAX_UNPACKED_BYTES // 1_000_000} MB unpacked",
-        )
     try:  # values as last saved, and the cells' formulas (to refuse a formula that has no saved value)
         book = openpyxl.load_workbook(io.BytesIO(payload), read_only=True, data_only=True)
         formulas = openpyxl.load_workbook(io.BytesIO(payload), read_only=True, data_only=False)
