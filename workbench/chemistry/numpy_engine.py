@@ -289,6 +289,8 @@ class State(Problem):
         rows = np.flatnonzero(act.any(axis=1))
         sub = idx[rows]
         act = act[rows]
+        sane = ~self._far(sub)
+        before = self.x[sub]
         si = np.where(act, self._si(sub), 0.0)
         bf = np.where(act[:, :, None] & self.free[sub][:, None, :], self.tab.b[None], 0.0)  # (k, s, m)
         # weighted least norm: moving the pH (charge-balance mode) to saturate a solid is a last resort
@@ -298,16 +300,26 @@ class State(Problem):
         gram[:, np.arange(self.s), np.arange(self.s)] += np.where(act, 0.0, 1.0)
         y = solve_batch(gram, si)
         self.x[sub] -= np.einsum("psm,ps->pm", bf * inv_w, y)
+        # the projection is linear and holds the pH: where the solids present fix a ratio of activities that the
+        # pH must move to meet (e.g. a zinc hydroxide and a zinc hydroxycarbonate together), it can throw a sane
+        # point far away. Such a point keeps its state and its solids: the Newton pass restores saturation with
+        # its line search (starting it cold would lose the solids and the pass would cycle back to them)
+        undo = sane & self._far(sub)
+        self.x[sub[undo]] = before[undo]
         self._abandon_far_starts(idx)
+
+    def _far(self, idx) -> np.ndarray:
+        """Points where a species holding a component with a total lies more than FAR_START_LOG (log10) above the
+        largest total (H+ and OH- follow the pH, not a total)."""
+        logc = self._logc(idx, self.x[idx], self._lg(idx))
+        holds = (self.present[idx, 1:].astype(float) @ (np.abs(self.tab.a[:, 1:]) > 0).T) > 0
+        top = np.where(holds, logc, -np.inf).max(axis=1)
+        return top > np.log10(np.abs(self.t[idx, 1:]).max(axis=1, initial=0.0) + 1e-300) + FAR_START_LOG
 
     def _abandon_far_starts(self, idx):
         """A start far from a point's equilibrium (e.g. a neighbour's solids at another pH) can put a species many
         orders of magnitude above any total; Newton would crawl down from there. Such points start cold."""
-        logc = self._logc(idx, self.x[idx], self._lg(idx))
-        # only species holding a component with a total (H+ and OH- follow the pH, not a total)
-        holds = (self.present[idx, 1:].astype(float) @ (np.abs(self.tab.a[:, 1:]) > 0).T) > 0
-        top = np.where(holds, logc, -np.inf).max(axis=1)
-        far = top > np.log10(np.abs(self.t[idx, 1:]).max(axis=1, initial=0.0) + 1e-300) + FAR_START_LOG
+        far = self._far(idx)
         if far.any():
             self.restart(idx[far])
 
@@ -376,8 +388,11 @@ class State(Problem):
             # final verification catches anything else
             done = ((residual < TOL_RESIDUAL) & (step_size < TOL_STEP)) | (step_size < TOL_STALL)
             if it >= EARLY_DROP_ITER:
-                # a solid with a negative amount will leave the set anyway: stop polishing a set that cannot stay
-                done |= (self.active[pending] & (n_new < 0.0)).any(axis=1)
+                # a solid with a negative amount will leave the set anyway: stop polishing a set that cannot stay.
+                # Not at a point whose set keeps changing: an amount that is negative before convergence can end
+                # positive, and dropping the solid early sends the point round the same sets again
+                cycling = self.changes[pending] >= CYCLE_GUARD
+                done |= (self.active[pending] & (n_new < 0.0)).any(axis=1) & ~cycling
             lam = self._step_limit(pending, dx, c)
             x0 = self.x[pending]
             phi0 = self._phi(pending, x0, lg)

@@ -50,7 +50,6 @@ SEARCH_GRID = 40  # points of the first, geometric grid of a search
 SEARCH_SUBDIVIDE = 16  # points per bracket in each refinement round
 SEARCH_MAX_ROUNDS = 16
 SEARCH_PH_TOL = 2e-4  # a bracket is converged when its ends differ by less than this [pH]
-MONOTONE_TOL = 1e-3  # a pH drop larger than this along increasing dose is refused as non-monotonic [pH]
 
 
 # ------------------------------------------------------------------------------------------------ setup
@@ -518,8 +517,8 @@ def _check_target(target_ph) -> float:
 
 def _roots(setup: _Setup, target: float, cacl2_mol_l: np.ndarray) -> tuple[np.ndarray, _Scan]:
     """Amount of active ingredient that brings each problem (one per calcium chloride amount) to the target pH
-    [mol/L], and the scan (with the reagent's ceiling): bracketed on a geometric grid, monotonicity checked,
-    then narrowed until the bracket spans less than SEARCH_PH_TOL."""
+    [mol/L], and the scan (with the reagent's ceiling): the smallest amount that reaches the target, bracketed on
+    a geometric grid, then narrowed until the bracket spans less than SEARCH_PH_TOL."""
     reagent = setup.reagent
     k = cacl2_mol_l.size
     scan = _scan(setup, cacl2_mol_l, target)
@@ -545,12 +544,6 @@ def _roots(setup: _Setup, target: float, cacl2_mol_l: np.ndarray) -> tuple[np.nd
                 f"{SEARCH_WIDE_ACTIVE_MOL_L:g} mol/L of {reagent.formula}, the most this tool searches: choose a "
                 "lower target",
             )
-    drop = -np.diff(ph, axis=1)
-    if (drop > MONOTONE_TOL).any():
-        raise ConvergenceError(
-            f"pH does not rise monotonically with {reagent.name} dose in this water (drop of {drop.max():.3g} pH): "
-            "the dose for a target pH is not unique"
-        )
     start = ph[:, 0]
     if (start > target + 1e-9).any():
         raise InputError(
@@ -559,7 +552,10 @@ def _roots(setup: _Setup, target: float, cacl2_mol_l: np.ndarray) -> tuple[np.nd
             f"allowed above the water's pH without reagent ({float(start.max()):.2f}): an alkali only raises the pH",
         )
     rows_all = np.arange(k)
-    j = np.maximum((ph >= target).argmax(axis=1), 1)
+    # the smallest dose that reaches the target: the pH need not rise everywhere (a buffer such as brucite whose
+    # pH eases as the ionic strength falls, a chelate giving up its metal to the reagent's calcium), so the first
+    # grid point at the target brackets it (within 1e-9 pH of a ceiling counts as reached)
+    j = np.maximum((ph >= target - 1e-9).argmax(axis=1), 1)
     lo, hi = grid[j - 1], grid[j]
     ph_lo, ph_hi = ph[rows_all, j - 1], ph[rows_all, j]
     at_start = np.abs(start - target) <= 1e-9
@@ -581,9 +577,7 @@ def _roots(setup: _Setup, target: float, cacl2_mol_l: np.ndarray) -> tuple[np.nd
         p = _grid_points(setup, pts, cacl2_mol_l[r])
         xs = np.concatenate((lo[r, None], pts, hi[r, None]), axis=1)
         ps = np.concatenate((ph_lo[r, None], p, ph_hi[r, None]), axis=1)
-        if (-np.diff(ps, axis=1) > MONOTONE_TOL).any():
-            raise ConvergenceError(f"pH does not rise monotonically with {reagent.name} dose in this water")
-        jj = np.maximum((ps >= target).argmax(axis=1), 1)
+        jj = np.maximum((ps >= np.minimum(target, ph_hi[r, None])).argmax(axis=1), 1)  # the first crossing
         rr = np.arange(r.size)
         lo[r], hi[r] = xs[rr, jj - 1], xs[rr, jj]
         ph_lo[r], ph_hi[r] = ps[rr, jj - 1], ps[rr, jj]
@@ -635,8 +629,13 @@ def dose_for_ph(
 
     Notes
     -----
-    pH rises monotonically with dose (checked). The search brackets the target on a geometric grid of doses,
-    then narrows the bracket by subdivision until its two ends differ by less than 0.0002 pH, and interpolates.
+    The dose returned is the smallest that reaches the target, as a plant adding reagent until the pH reads the
+    setpoint doses. The pH need not rise everywhere with dose: in a water buffered by a solid (brucite, whose pH
+    eases as the ionic strength falls) or holding a chelated metal that the reagent's calcium sets free to
+    hydrolyse, it can fall a little over a range of doses; :func:`dose_curve` shows the whole curve. The search
+    brackets the target on a geometric grid of doses (the first grid point at or above it), then narrows the
+    bracket by subdivision, keeping the first crossing, until its two ends differ by less than 0.0002 pH, and
+    interpolates.
     """
     target = _check_target(target_ph)
     cacl2 = rg.check_amount(
