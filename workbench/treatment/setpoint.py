@@ -483,8 +483,20 @@ def _why_not_met(water, curve, targets, opts, lo, hi) -> list[str]:
     return notes
 
 
+def _without(water, fields) -> Water | None:
+    """The water without these complexants, or None where that analysis is not valid on its own (its alkalinity
+    was converted at an ionic strength the complexants helped make: without them it may exceed the CO2 a water
+    holds at the measured pH)."""
+    try:
+        return replace(water, **dict.fromkeys(fields, 0.0))
+    except InputError:
+        return None
+
+
 def _meets_without(water, fld, metal, target, opts, lo, hi) -> bool:
-    bare = replace(water, **{fld: 0.0})
+    bare = _without(water, [fld])
+    if bare is None:
+        return False
     grid = np.round(np.arange(lo, hi + 1e-9, 0.05), 4)
     tab, eq, _ = equilibrium_within_model(bare, grid, **opts)
     return bool((_compared(bare, tab, eq, None)[metal] <= target).any())
@@ -494,12 +506,15 @@ def _complexant_notes(water, used, targets, tss, opts, windows, lo, hi, step) ->
     present = [(fld, name) for fld, name in COMPLEXANTS.items() if getattr(water, fld) > 0]
     if not present:
         return []
-    bare = replace(water, **{fld: 0.0 for fld, _ in present})
+    names = " and ".join(name for _, name in present)
+    bare = _without(water, [fld for fld, _ in present])
+    if bare is None:
+        return [f"{names} present: the window without {names} is not computed (the analysis without it is "
+                "inconsistent: its alkalinity needs more CO2 than water holds at the measured pH)."]
     grid = np.round(np.arange(lo, hi + 1e-9, step), 6)
     tab, eq, reach = equilibrium_within_model(bare, grid, **opts)
     curve = _held_curve(_compared(bare, tab, eq, tss)[list(used.index)], grid, reach)
     bare_windows, _ = _windows(curve, targets)
-    names = " and ".join(name for _, name in present)
     width = sum(b - a for a, b in windows)
     bare_width = sum(b - a for a, b in bare_windows)
     if bare_width - width < 1e-9:
