@@ -3,10 +3,11 @@ cautions)."""
 
 from __future__ import annotations
 
-import html
 import textwrap
 
 import plotly.graph_objects as go
+
+from workbench.figures.text import plain
 
 CAPTION_NAME = "caption"
 FONT_PX = 11
@@ -48,7 +49,7 @@ def add_caption(
     """
     wrapped = wrap_caption(lines)
     caption_px = LINE_PX * len(wrapped) + 10
-    text = "<br>".join(html.escape(line, quote=False) for line in wrapped)
+    text = "<br>".join(plain(line) for line in wrapped)  # user text in the lines: shown as written
     kept = [a for a in fig.layout.annotations if a.name != CAPTION_NAME]
     fig.update_layout(
         annotations=[

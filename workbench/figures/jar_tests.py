@@ -7,6 +7,7 @@ import pandas as pd
 import plotly.graph_objects as go
 
 from workbench.figures.palette import metal_style
+from workbench.figures.text import plain, title_text
 
 FLOOR_MG_L = 1e-9  # lowest value drawn on the log axis [mg/L]
 _MARKERS = {  # (fraction, below detection) -> plotly symbol; filtered filled, unfiltered open
@@ -30,6 +31,7 @@ def fig_jar_tests(
     fig: go.Figure | None = None,
     calibrated_curve: pd.DataFrame | None = None,
     title: str | None = None,
+    subtitle: str | None = None,
 ) -> go.Figure:
     """Measured jar results (log scale, mg/L) against pH over the predicted dissolved curves.
 
@@ -47,7 +49,8 @@ def fig_jar_tests(
         Figure (or FigureWidget) to draw into; its traces are replaced.
     calibrated_curve : pandas.DataFrame, optional
         The same with the fitted solubility shifts (:func:`workbench.treatment.calibration.calibrated_curve`).
-    title : str, optional
+    title, subtitle : str, optional
+        Plain text (markup is shown as written, never followed), e.g. the scenario's name.
     """
     fig = go.Figure() if fig is None else fig
     traces = []
@@ -77,7 +80,7 @@ def fig_jar_tests(
         lo = min([float(tidy["pH"].min())] + ([float(x.min())] if x.size else []))
         hi = max([float(tidy["pH"].max())] + ([float(x.max())] if x.size else []))
         fig.update_layout(
-            title=title,
+            title=title_text(title, subtitle),
             xaxis=dict(title="pH", range=[lo - 0.2, hi + 0.2], dtick=1),
             yaxis=dict(title="metal (mg/L)", type="log", exponentformat="power", dtick=1),
             legend=dict(title="metal"),
@@ -110,7 +113,7 @@ def _points(metal, sel, fraction, censored, symbol, colour) -> go.Scatter:
         name=f"{metal} {_LABELS[(fraction, censored)]}",
         legendgroup=metal,
         marker=dict(color=colour, symbol=symbol, size=9, line=dict(color=colour, width=1.5)),
-        customdata=np.column_stack([sel["jar"].astype(str).to_numpy(), shown]),
+        customdata=np.column_stack([sel["jar"].astype(str).map(plain).to_numpy(), shown]),  # ids as written
         hovertemplate=(
             f"jar %{{customdata[0]}}: {metal} {fraction} %{{customdata[1]}} mg/L at pH %{{x:.2f}}<extra></extra>"
         ),

@@ -7,6 +7,7 @@ import pandas as pd
 import plotly.graph_objects as go
 
 from workbench.figures.palette import metal_style
+from workbench.figures.text import title_text
 
 
 def fig_residual_curve(
@@ -15,6 +16,7 @@ def fig_residual_curve(
     *,
     fig: go.Figure | None = None,
     title: str | None = None,
+    subtitle: str | None = None,
 ) -> go.Figure:
     """Log-scale dissolved metal (mg/L) against pH, one trace per metal; each metal's minimum marked.
 
@@ -26,7 +28,8 @@ def fig_residual_curve(
         From :func:`workbench.minimum_solubility`: marks ``ph_min``/``residual_mg_l`` per metal.
     fig : plotly.graph_objects.Figure, optional
         Figure (or FigureWidget) to draw into; its traces are replaced.
-    title : str, optional
+    title, subtitle : str, optional
+        Plain text (markup is shown as written, never followed), e.g. the scenario's name.
     """
     fig = go.Figure() if fig is None else fig
     traces = []
@@ -65,7 +68,7 @@ def fig_residual_curve(
         fig.data = ()
         fig.add_traces(traces)
         fig.update_layout(
-            title=title,
+            title=title_text(title, subtitle),
             xaxis=dict(title="pH", range=[float(curve.index.min()), float(curve.index.max())], dtick=1),
             yaxis=dict(title="dissolved metal (mg/L)", type="log", exponentformat="power", dtick=1),
             legend=dict(title="metal"),

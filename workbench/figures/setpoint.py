@@ -9,6 +9,7 @@ import numpy as np
 import plotly.graph_objects as go
 
 from workbench.figures.palette import WINDOW_FILL, metal_style
+from workbench.figures.text import title_text
 
 FLOOR_MG_L = 1e-9  # values below are drawn at this floor (a log axis cannot show zero)
 SETPOINT_COLOUR = "#333333"
@@ -27,7 +28,14 @@ def _axis_title(compared: str) -> str:
     return "total metal: dissolved + carried-over solids (mg/L)"
 
 
-def fig_setpoint(design, *, band=None, fig: go.Figure | None = None, title: str | None = None) -> go.Figure:
+def fig_setpoint(
+    design,
+    *,
+    band=None,
+    fig: go.Figure | None = None,
+    title: str | None = None,
+    subtitle: str | None = None,
+) -> go.Figure:
     """Log-scale compared metal (mg/L) against pH for a setpoint design.
 
     One trace per metal (the palette's colour), each metal's design target (margin x limit, dashed) and limit
@@ -46,7 +54,8 @@ def fig_setpoint(design, *, band=None, fig: go.Figure | None = None, title: str 
         pH, dissolved metal. [mg/L]
     fig : plotly.graph_objects.Figure, optional
         Figure (or FigureWidget) to draw into; its traces, shapes and annotations are replaced.
-    title : str, optional
+    title, subtitle : str, optional
+        Plain text (markup is shown as written, never followed), e.g. the scenario's name.
     """
     fig = go.Figure() if fig is None else fig
     curve = design.curve
@@ -80,7 +89,7 @@ def fig_setpoint(design, *, band=None, fig: go.Figure | None = None, title: str 
         fig.data = ()
         fig.add_traces(traces)
         fig.update_layout(
-            title=title,
+            title=title_text(title, subtitle),
             shapes=shapes,
             annotations=notes,
             xaxis=dict(title="pH", range=x_range, dtick=1),

@@ -7,6 +7,7 @@ import pandas as pd
 import plotly.graph_objects as go
 
 from workbench.figures.palette import CEILING_LINE, SETPOINT_LINE, TITRATION_LINE
+from workbench.figures.text import title_text
 
 
 def fig_titration(
@@ -16,6 +17,7 @@ def fig_titration(
     ceiling_ph: float | None = None,
     fig: go.Figure | None = None,
     title: str | None = None,
+    subtitle: str | None = None,
 ) -> go.Figure:
     """pH against reagent dose (mg/L of product as sold), the setpoint and the ceiling as horizontal lines.
 
@@ -29,7 +31,8 @@ def fig_titration(
         The highest pH the reagent reaches in this water (saturation), drawn as a dotted line. [-]
     fig : plotly.graph_objects.Figure, optional
         Figure (or FigureWidget) to draw into; its traces and shapes are replaced.
-    title : str, optional
+    title, subtitle : str, optional
+        Plain text (markup is shown as written, never followed), e.g. the scenario's name.
     """
     fig = go.Figure() if fig is None else fig
     curve = curve.sort_values("dose_mg_l")
@@ -65,7 +68,7 @@ def fig_titration(
         fig.data = ()
         fig.add_traces(traces)
         fig.update_layout(
-            title=title,
+            title=title_text(title, subtitle),
             xaxis=dict(title="reagent dose (mg/L of product as sold)"),
             yaxis=dict(title="pH", range=[np.floor(bottom) - 0.25, min(14.0, np.ceil(top) + 0.25)]),
             legend=dict(title=None),

@@ -742,11 +742,10 @@ class SetpointPanel:
         return design
 
     def _draw(self, scenario: Scenario, design) -> None:
-        title = (
-            f"{html.escape(scenario.name or 'Setpoint design')}<br><sup>{html.escape(design.compared)} metal "
-            "against pH; example limits are not a permit: the local permit governs</sup>"
+        subtitle = f"{design.compared} metal against pH; example limits are not a permit: the local permit governs"
+        fig_setpoint(
+            design, band=design.band, fig=self.figure, title=scenario.name or "Setpoint design", subtitle=subtitle
         )
-        fig_setpoint(design, band=design.band, fig=self.figure, title=title)
         self.design = design
         self.scenario = scenario
 
