@@ -7,6 +7,25 @@ message names the field, the value given and what is allowed. A calculation that
 
 from __future__ import annotations
 
+import reprlib
+
+MAX_SHOWN = 300  # characters of a value shown in a message; longer or deeply nested values are abbreviated
+_SHORT = reprlib.Repr()  # keyword arguments to Repr() arrived in Python 3.12
+_SHORT.maxlevel, _SHORT.maxdict, _SHORT.maxlist, _SHORT.maxtuple = 3, 6, 12, 12
+_SHORT.maxstring, _SHORT.maxother, _SHORT.maxlong = 120, 120, 60
+
+
+def shown(value: object) -> str:
+    """The value's repr for a message: as is when short, else abbreviated (a value nested thousands deep, as a
+    hostile file can hold, never raises here)."""
+    try:
+        text = repr(value)
+    except RecursionError:
+        text = None
+    if text is None or len(text) > MAX_SHOWN:
+        text = _SHORT.repr(value)
+    return text
+
 
 class InputError(ValueError):
     """Bad input: names the field, the value and what is allowed."""
@@ -15,7 +34,7 @@ class InputError(ValueError):
         self.field = field
         self.value = value
         self.allowed = allowed
-        super().__init__(f"{field}: got {value!r}; {allowed}")
+        super().__init__(f"{field}: got {shown(value)}; {allowed}")
 
 
 class DataError(ValueError):

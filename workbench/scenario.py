@@ -662,6 +662,10 @@ def read_scenario(path: str | Path) -> Scenario:
         doc = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise InputError("scenario file", str(path), f"valid TOML is required ({exc})") from None
+    except RecursionError:  # arrays or tables nested thousands deep: the parser recurses once per level
+        raise InputError(
+            "scenario file", str(path), "valid TOML nested a few levels deep is required (this nests too deep)"
+        ) from None
     return parse_scenario(doc)
 
 
@@ -745,7 +749,8 @@ def save_scenario(scenario: Scenario, path: str | Path) -> Path:
     over ``path``. On any error the previous file (if any) is left as it was and no temporary file remains.
 
     The text is read back and compared with ``scenario`` before anything is replaced, so a file that would
-    not reproduce every entered value is never written.
+    not reproduce every entered value is never written. The name must end in ``.toml``: a mistyped target (a
+    notebook, a jar-test sheet) is refused, never replaced.
 
     Returns
     -------
@@ -754,7 +759,13 @@ def save_scenario(scenario: Scenario, path: str | Path) -> Path:
     """
     if not isinstance(scenario, Scenario):
         raise InputError("scenario", type(scenario).__name__, "a workbench Scenario is required")
+    if not isinstance(path, str | os.PathLike) or not str(path).strip():
+        raise InputError("scenario file", path, "a file path ending in .toml is required")
     path = Path(path)
+    if path.suffix.lower() != ".toml":
+        raise InputError(
+            "scenario file", str(path), "a file name ending in .toml (a scenario is never saved over another file)"
+        )
     if path.is_dir():
         raise InputError("scenario file", str(path), "a file name is required (this is a folder)")
     folder = path.parent
