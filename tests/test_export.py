@@ -42,7 +42,7 @@ from workbench.treatment.provenance import bibliography
 REPO = Path(__file__).resolve().parents[1]
 FIGURES = ("setpoint", "residual_curves")
 TABLES = ("minimum_solubility", "setpoint_headroom", "limits_used", "windows")
-TEXT_FILES = ("cautions.txt", "sources.txt", "scenario.toml", "summary.html")
+TEXT_FILES = ("cautions.txt", "sources.txt", "scenario.toml", "summary.html", "tables.xlsx", "pack_manifest.json")
 
 
 @pytest.fixture(scope="module")
@@ -139,8 +139,9 @@ def test_cautions_and_sources_files_are_complete(runs):
 def test_second_run_gives_identical_bytes(runs):
     first, second = runs
     assert [p.name for p in first] == [p.name for p in second]
+    # tables.xlsx carries the time it was written, the manifest the digests of PNG and PDF (which carry it too)
     same_bytes = [p for p in first if p.suffix in (".html", ".svg", ".csv", ".txt", ".toml")]
-    assert len(same_bytes) == 2 * 2 + len(TABLES) + len(TEXT_FILES)
+    assert len(same_bytes) == 2 * 2 + len(TABLES) + len(TEXT_FILES) - 2
     for a in same_bytes:
         assert a.read_bytes() == (second[0].parent / a.name).read_bytes(), a.name
 
@@ -180,7 +181,7 @@ def test_two_stage_design_writes_a_stages_table(server, tmp_path):
     assert "two stages" in _svg_text(tmp_path / "pack" / "setpoint.svg")
     limits = pd.read_csv(tmp_path / "pack" / "limits_used.csv")
     assert limits["used_in_design"].all() and set(limits["metal"]) == {"Al", "Cd"}
-    assert {p.suffix for p in written} == {".svg", ".csv", ".txt", ".toml", ".html"}
+    assert {p.suffix for p in written} == {".svg", ".csv", ".txt", ".toml", ".html", ".xlsx", ".json"}
 
 
 # ---------------------------------------------------------------------------------------------------- refusals

@@ -1,13 +1,16 @@
 """Command line: ``python -m workbench lab [--port N] [--no-browser]``,
-``python -m workbench figures SCENARIO.toml --out DIR [--formats png,svg,pdf,html]`` and
+``python -m workbench figures SCENARIO.toml --out DIR [--formats png,svg,pdf,html] [--overwrite]`` and
 ``python -m workbench demo DIR``.
 
 ``lab`` starts JupyterLab on the repository's ``notebooks/`` folder, bound to 127.0.0.1 and protected by a
 fresh random token, opening the setpoint-design notebook, and prints the URL (with the token) to open once the
 server answers.
 ``figures`` computes a scenario's figure pack (figures with captions, tables, cautions, sources) and writes it
-into DIR, printing each file written; a bad scenario or option prints the message (field, value, what is
-allowed) and exits with status 2; a missing browser for PNG/SVG/PDF exits with status 1.
+into DIR, printing each file written. DIR must be new, empty, or a folder an earlier pack wrote (whose unchanged
+files it replaces); ``--overwrite`` replaces other files in the way; the scenario read is never replaced. DIR is
+checked (created, writable, nothing in the way) before anything is computed. A bad scenario, option or output
+folder, or a failure to write, prints the message (field, value, what is allowed) and exits with status 2; a
+missing browser for PNG/SVG/PDF exits with status 1. No traceback for any of them.
 ``demo`` copies the demo scenario and the demo jar-test file (an invented plant) into DIR, created if needed, so
 that an installed copy has files to start from; it never replaces a file that differs (exit status 2).
 Subcommands are registered in :func:`build_parser`.
@@ -173,13 +176,19 @@ def _run_figures(args: argparse.Namespace) -> int:
                 file=sys.stderr,
                 flush=True,
             )
-        written = export_figure_pack(scenario, args.out, formats=formats)
+        written = export_figure_pack(
+            scenario, args.out, formats=formats, overwrite=args.overwrite, keep=[args.scenario]
+        )
     except InputError as exc:
         print(f"workbench figures: {exc}", file=sys.stderr)
         return 2
     except ExportError as exc:
         print(f"workbench figures: {exc}", file=sys.stderr)
         return 1
+    except OSError as exc:  # e.g. the disk filled up while writing: every file is written whole or not at all
+        where = exc.filename or args.out
+        print(f"workbench figures: writing {where} failed: {exc.strerror or exc}", file=sys.stderr)
+        return 2
     for path in written:
         print(path)
     return 0
@@ -211,6 +220,11 @@ def build_parser() -> argparse.ArgumentParser:
     )
     figures.add_argument("scenario", help="scenario file (.toml, the workbench's own schema)")
     figures.add_argument("--out", required=True, help="folder to write into (created if needed)")
+    figures.add_argument(
+        "--overwrite",
+        action="store_true",
+        help="replace files in the way that no earlier pack wrote (never the scenario read)",
+    )
     figures.add_argument(
         "--formats",
         default="png,svg,pdf,html",

@@ -9,24 +9,39 @@ solubility) and builds the figures, each with a caption printed inside it: condi
 - ``setpoint.{png,svg,pdf,html}`` and ``residual_curves.{png,svg,pdf,html}``: the figures;
 - ``minimum_solubility.csv``, ``setpoint_headroom.csv``, ``limits_used.csv``, ``windows.csv`` and, when the
   design has two stages, ``stages.csv``;
+- ``tables.xlsx`` (the same tables, a sheet each);
 - ``summary.html`` (tables, figures, cautions and sources in one offline page), ``cautions.txt``,
-  ``sources.txt`` and ``scenario.toml`` (the inputs, to regenerate the pack).
+  ``sources.txt`` and ``scenario.toml`` (the inputs, to regenerate the pack);
+- ``pack_manifest.json``: the files this pack wrote, each with its SHA-256.
+
+Nothing is overwritten without asking. A pack goes into a new or empty folder, or into a folder an earlier pack
+wrote, where it replaces only files that pack wrote and that are unchanged since (their SHA-256 as recorded in
+``pack_manifest.json``); files of the earlier pack that this one does not write, unchanged, are removed, so the
+folder holds one pack. Anything else in the way (a file of the user's, or one changed since) is refused, naming
+it, unless ``overwrite=True`` (``--overwrite``). Input files named in ``keep`` (the command line names the
+scenario read) are never replaced, even with ``overwrite``. The folder is created and checked writable before
+anything is computed. Text from the scenario is escaped in every figure (plotly reads its text as HTML) and in
+``summary.html``, and neutralised in every table cell a spreadsheet would run as a formula
+(:mod:`workbench.tables`).
 
 Static images (PNG, SVG, PDF) are rendered by kaleido in a Chromium browser, one browser for the whole pack.
 The browser is the one named by ``BROWSER_PATH``, else ``chromium`` on the PATH, else Debian's
 ``/usr/bin/chromium``; nothing is ever downloaded. HTML files carry plotly.js inside them and work offline.
 
 Every file is written inside the chosen folder only, through a temporary file and a rename, and the same
-scenario gives byte-identical HTML, SVG, CSV and text files (PNG and PDF may differ in embedded metadata).
+scenario gives byte-identical HTML, SVG, CSV and text files (PNG, PDF and tables.xlsx may differ in embedded times,
+and the manifest with them).
 """
 
 from __future__ import annotations
 
+import hashlib
 import html
-import io
+import json
 import os
 import re
 import shutil
+import tempfile
 import unicodedata
 from collections.abc import Callable, Iterator, Sequence
 from contextlib import contextmanager
@@ -42,6 +57,7 @@ from workbench.figures.caption import add_caption
 from workbench.figures.residuals import fig_residual_curve
 from workbench.figures.setpoint import fig_setpoint
 from workbench.scenario import Scenario, design_scenario, write_atomic
+from workbench.tables import table_csv, tables_xlsx
 from workbench.treatment.cautions import cautions as standard_cautions
 from workbench.treatment.provenance import constants_used, sources_of
 from workbench.treatment.setpoint import SetpointDesign
@@ -56,6 +72,8 @@ __all__ = [
     "export_figure_pack",
     "find_browser",
     "image_server",
+    "check_progress",
+    "pack_file_names",
     "pack_folder_name",
 ]
 
@@ -67,6 +85,12 @@ PNG_SCALE = 2  # 2000 px wide: sharp in a printed report
 CURVE_STEP = 0.05  # pH step of the residual-curve figure
 MAX_CAPTION_SOURCES = 12
 MAX_SLUG = 80  # characters of the scenario name kept in a pack folder's name
+MANIFEST = "pack_manifest.json"
+MANIFEST_VERSION = 1
+MAX_MANIFEST_BYTES = 1_000_000
+FIGURE_STEMS = ("setpoint", "residual_curves")
+TABLE_STEMS = ("minimum_solubility", "setpoint_headroom", "limits_used", "windows", "stages")
+TEXT_FILES = ("tables.xlsx", "cautions.txt", "sources.txt", "scenario.toml", "summary.html")
 CAUTION_LINE = (
     "Cautions: theoretical equilibrium, confirm with jar tests on the real wastewater; the local permit and a "
     "licensed engineer govern; reduce Cr(VI) and destroy cyanide before precipitation, never acidify cyanide; "
@@ -427,35 +451,196 @@ def _check_out_dir(out_dir, within) -> Path:
     return path
 
 
-class _Writer:
-    """Writes files by name into one folder only, atomically, and records them. Every name is checked before
-    anything is written: a plain file name, not a link, not a folder."""
+def check_progress(progress):
+    """``progress`` as given when it is None or callable as progress(done, total)."""
+    if progress is not None and not callable(progress):
+        raise InputError("progress", progress, "a function progress(done, total), or None")
+    return progress
 
-    def __init__(self, folder: Path, names: list[str]):
-        folder.mkdir(parents=True, exist_ok=True)
-        self.folder = folder.resolve()
-        self.names = names
-        self.written: list[Path] = []
-        for name in names:
-            self._target(name)
 
-    def _target(self, name: str) -> Path:
+def pack_file_names(formats: Sequence[str], tables: Sequence[str] = TABLE_STEMS) -> list[str]:
+    """The files a pack of these formats writes (``stages.csv`` only for a two-stage design), manifest last."""
+    names = [f"{stem}.{fmt}" for stem in FIGURE_STEMS for fmt in check_formats(formats)]
+    return names + [f"{stem}.csv" for stem in tables] + list(TEXT_FILES) + [MANIFEST]
+
+
+def _sha256(path: Path) -> str:
+    digest = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for block in iter(lambda: fh.read(1 << 20), b""):
+            digest.update(block)
+    return digest.hexdigest()
+
+
+def _earlier_pack(folder: Path) -> dict[str, str | None] | None:
+    """The files an earlier pack recorded in the folder's manifest (name -> SHA-256, None while it was being
+    written), or None when there is no manifest this workbench wrote."""
+    path = folder / MANIFEST
+    if path.is_symlink() or not path.is_file() or path.stat().st_size > MAX_MANIFEST_BYTES:
+        return None
+    try:
+        doc = json.loads(path.read_bytes().decode("utf-8"))
+    except (OSError, UnicodeDecodeError, ValueError, RecursionError):
+        return None
+    files = doc.get("files") if isinstance(doc, dict) and doc.get("workbench_pack") == MANIFEST_VERSION else None
+    if not isinstance(files, dict):
+        return None
+    ok = all(
+        isinstance(k, str) and Path(k).name == k and (v is None or (isinstance(v, str) and len(v) == 64))
+        for k, v in files.items()
+    )
+    return files if ok else None
+
+
+def _same_file(a: Path, b: Path) -> bool:
+    try:
+        return a.exists() and b.exists() and os.path.samefile(a, b)
+    except OSError:
+        return False
+
+
+@dataclass
+class _Plan:
+    """What writing a pack into a folder will do, decided before anything is written (internal)."""
+
+    folder: Path
+    names: list[str]
+    stale: list[str]  # files of an earlier pack, unchanged, that this pack does not write: removed
+    earlier: dict[str, str | None]
+
+
+def _plan(folder: Path, names: list[str], *, overwrite: bool, keep: Sequence) -> _Plan:
+    """Check every name against what is in the folder: never a kept input, a link or a folder; an existing file
+    only when an earlier pack wrote it and it is unchanged since, or with ``overwrite``."""
+    kept = [Path(k) for k in keep]
+    for name in names:
         if Path(name).name != name or name in ("", ".", ".."):
             raise InputError("file name", name, "a plain file name inside the export folder")
+        target = folder / name
+        if any(_same_file(target, k) for k in kept):
+            raise InputError(
+                "out_dir",
+                str(folder),
+                f"a folder where the pack does not replace its own input ({target} is the scenario read): "
+                "choose another folder",
+            )
+        if target.is_symlink():
+            raise InputError("file", str(target), f"a file inside {folder} (this one is a link)")
+        if target.exists() and not target.is_file():
+            raise InputError("file", str(target), "a file (a folder of that name is in the way)")
+    earlier = _earlier_pack(folder) if folder.is_dir() else None
+    existing = sorted(p.name for p in folder.iterdir()) if folder.is_dir() else []
+    if existing and earlier is None and not overwrite:
+        listed = ", ".join(existing[:5]) + (" ..." if len(existing) > 5 else "")
+        raise InputError(
+            "out_dir",
+            str(folder),
+            f"a new or empty folder, or one an earlier pack wrote ({MANIFEST}); this one holds {listed}: choose "
+            "another folder, or overwrite (--overwrite) to replace the pack's files in it",
+        )
+    earlier = earlier or {}
+    for name in names:
+        target = folder / name
+        if name == MANIFEST or overwrite or not target.exists():
+            continue
+        if name not in earlier:
+            raise InputError(
+                "file",
+                str(target),
+                "a file the pack may replace: this one was not written by an earlier pack (not in "
+                f"{MANIFEST}); move it, choose another folder, or overwrite (--overwrite)",
+            )
+        if earlier[name] is not None and _sha256(target) != earlier[name]:
+            raise InputError(
+                "file",
+                str(target),
+                "a file the pack may replace: this one was changed since an earlier pack wrote it; move it, "
+                "choose another folder, or overwrite (--overwrite)",
+            )
+    stale = [
+        name
+        for name, digest in earlier.items()
+        if name not in names
+        and (folder / name).is_file()
+        and not (folder / name).is_symlink()
+        and not any(_same_file(folder / name, k) for k in kept)
+        and digest is not None
+        and _sha256(folder / name) == digest
+    ]
+    return _Plan(folder, names, stale, earlier)
+
+
+def _prepare(folder: Path) -> list[Path]:
+    """Create the folder (and its missing parents) and prove it writable with a probe file; returns the folders
+    created, so that they can be removed again if the pack is not written."""
+    created = [p for p in [folder, *folder.parents] if not p.exists()][::-1]
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+        fd, probe = tempfile.mkstemp(dir=folder, prefix=".write-check-")
+        os.close(fd)
+        os.unlink(probe)
+    except OSError as exc:
+        _remove_empty(created)
+        raise InputError(
+            "out_dir", str(folder), f"a folder this user can create and write to ({exc.strerror or exc})"
+        ) from None
+    return created
+
+
+def _remove_empty(created: list[Path]) -> None:
+    for path in reversed(created):
+        try:
+            path.rmdir()
+        except OSError:
+            return
+
+
+class _Writer:
+    """Writes the planned files into one folder only, atomically, and records them in the manifest: first as
+    being written (so an interrupted pack is still known as one), at the end with each file's SHA-256."""
+
+    def __init__(self, plan: _Plan, scenario_name: str):
+        self.plan = plan
+        self.folder = plan.folder.resolve()
+        self.scenario_name = scenario_name
+        self.written: list[Path] = []
+        self.digests: dict[str, str] = {}
+        pending = {**{k: v for k, v in plan.earlier.items() if (self.folder / k).exists()}}
+        pending.update(dict.fromkeys((n for n in plan.names if n != MANIFEST), None))
+        self._manifest(pending)
+
+    def _target(self, name: str) -> Path:
         target = self.folder / name
         if target.is_symlink() or target.resolve().parent != self.folder:
             raise InputError("file", str(target), f"a file inside {self.folder} (this one is a link)")
-        if target.exists() and not target.is_file():
-            raise InputError("file", str(target), "a file (a folder of that name is in the way)")
         return target
 
     def write(self, name: str, data: bytes | str) -> Path:
-        if name not in self.names:
+        if name not in self.plan.names or name == MANIFEST:
             raise InputError("file name", name, "one of the names checked before writing")
         target = self._target(name)
-        write_atomic(target, data.encode("utf-8") if isinstance(data, str) else data)
+        data = data.encode("utf-8") if isinstance(data, str) else data
+        write_atomic(target, data)
+        self.digests[name] = hashlib.sha256(data).hexdigest()
         self.written.append(target)
         return target
+
+    def finish(self) -> list[Path]:
+        for name in self.plan.stale:
+            (self.folder / name).unlink(missing_ok=True)
+        self._manifest(dict(self.digests))
+        self.written.append(self.folder / MANIFEST)
+        return self.written
+
+    def _manifest(self, files: dict) -> None:
+        doc = {
+            "workbench_pack": MANIFEST_VERSION,
+            "scenario": self.scenario_name,
+            "note": "Files written by the workbench's figure pack, with their SHA-256. A later pack replaces "
+            "only these, and only while unchanged.",
+            "files": files,
+        }
+        write_atomic(self._target(MANIFEST), (json.dumps(doc, indent=1, sort_keys=True) + "\n").encode("utf-8"))
 
 
 def export_figure_pack(
@@ -466,15 +651,18 @@ def export_figure_pack(
     pack: FigurePack | None = None,
     within: str | os.PathLike | None = None,
     progress: Callable[[int, int], None] | None = None,
+    overwrite: bool = False,
+    keep: Sequence[str | os.PathLike] = (),
 ) -> list[Path]:
-    """Compute the scenario's figure pack and write it into ``out_dir`` (created if needed).
+    """Compute the scenario's figure pack and write it into ``out_dir``; the folder is checked first.
 
     Parameters
     ----------
     scenario : Scenario
     out_dir : path
-        The folder to write into. Refused when it is an existing file, or, with ``within``, when it leads
-        outside ``within``.
+        The folder to write into: new, empty, or one an earlier pack wrote (see the module's docstring); created
+        if needed. Refused when it is an existing file, when it cannot be written, or, with ``within``, when it
+        leads outside ``within``.
     formats : sequence of {"png", "svg", "pdf", "html"}
         Figure formats (also "png,svg" as one string).
     pack : FigurePack, optional
@@ -483,29 +671,40 @@ def export_figure_pack(
         A folder ``out_dir`` must stay inside (a relative ``out_dir`` is taken relative to it).
     progress : callable(done, total), optional
         Monte Carlo progress, when the pack is computed here.
+    overwrite : bool
+        Replace files in the way that no earlier pack wrote, or that were changed since.
+    keep : sequence of paths
+        Files never replaced, even with ``overwrite`` (the scenario file read, for one).
 
     Returns
     -------
     list of pathlib.Path
-        The files written, in the order written.
+        The files written, in the order written, the manifest last.
     """
     formats = check_formats(formats)
+    check_progress(progress)
+    if not isinstance(overwrite, bool):
+        raise InputError("overwrite", overwrite, "True or False")
+    keep = [keep] if isinstance(keep, str | os.PathLike) else list(keep)
+    if not all(isinstance(k, str | os.PathLike) for k in keep):
+        raise InputError("keep", keep, "a list of file paths")
     folder = _check_out_dir(out_dir, within)
-    if pack is None:
-        pack = build_figure_pack(scenario, progress=progress)
-    elif not isinstance(pack, FigurePack) or pack.scenario != scenario:
+    if pack is not None and (not isinstance(pack, FigurePack) or pack.scenario != scenario):
         raise InputError("pack", type(pack).__name__, "a FigurePack built from this same scenario")
     static = [f for f in formats if f in STATIC_FORMATS]
+    # every check on the folder before any work: nothing is computed for a pack that cannot be written
+    _plan(folder, pack_file_names(formats), overwrite=overwrite, keep=keep)
     if static:
-        find_browser()  # fail before writing anything
-    names = [f"{stem}.{fmt}" for stem in pack.figures for fmt in formats]
-    names += [f"{stem}.csv" for stem in pack.tables] + [
-        "cautions.txt",
-        "sources.txt",
-        "scenario.toml",
-        "summary.html",
-    ]
-    writer = _Writer(folder, names)
+        find_browser()
+    created = _prepare(folder)
+    try:
+        if pack is None:
+            pack = build_figure_pack(scenario, progress=progress)
+    except BaseException:
+        _remove_empty(created)
+        raise
+    plan = _plan(folder, pack_file_names(formats, list(pack.tables)), overwrite=overwrite, keep=keep)
+    writer = _Writer(plan, pack.scenario.name)
     svgs: dict[str, str] = {}
     with image_server() if static else _nothing():
         for stem, fig in pack.figures.items():
@@ -519,24 +718,18 @@ def export_figure_pack(
                 if fmt == "svg":
                     svgs[stem] = data.decode("utf-8")
     for stem, table in pack.tables.items():
-        writer.write(f"{stem}.csv", _csv(table))
+        writer.write(f"{stem}.csv", table_csv(table))
+    writer.write("tables.xlsx", tables_xlsx(pack.tables))
     writer.write("cautions.txt", _cautions_text(pack))
     writer.write("sources.txt", _sources_text(pack))
     writer.write("scenario.toml", pack.scenario.to_toml())
     writer.write("summary.html", _summary_html(pack, formats, svgs))
-    return writer.written
+    return writer.finish()
 
 
 @contextmanager
 def _nothing() -> Iterator[None]:
     yield
-
-
-def _csv(table: pd.DataFrame) -> str:
-    buf = io.StringIO()
-    index = table.index.name is not None
-    table.to_csv(buf, index=index, lineterminator="\n")
-    return buf.getvalue()
 
 
 def _cautions_text(pack: FigurePack) -> str:
@@ -607,7 +800,7 @@ def _summary_html(pack: FigurePack, formats: tuple[str, ...], svgs: dict[str, st
         else:  # no image to show: the caption as text, the figure behind the links
             parts.append(f"<p>{e(' '.join(caption))}</p>")
         parts.append(f"<figcaption>Caption printed in the figure. Files: {links}</figcaption></figure>")
-    parts.append("<h2>Tables</h2>")
+    parts.append('<h2>Tables</h2><p>All of them in one workbook: <a href="tables.xlsx">tables.xlsx</a>.</p>')
     for stem, table in pack.tables.items():
         parts.append(f'<h3>{e(stem.replace("_", " "))} (<a href="{stem}.csv">{stem}.csv</a>)</h3>')
         shown = table.drop(columns=[c for c in ("source",) if c in table.columns])  # citations: see Sources
