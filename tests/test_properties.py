@@ -16,12 +16,15 @@ Davies activity coefficients at the reported ionic strength, saturation indices 
 (present solids at saturation, absent ones not supersaturated, both within 1e-9), non-negative solid amounts,
 the pH held (fixed-pH mode) or electroneutrality (charge-balance mode), dissolved metal never above the influent.
 
-Five properties draw 13,000 waters in all (EXAMPLES): every entry point on each water; the residual curve alone;
+Six properties draw 13,300 waters in all (EXAMPLES): every entry point on each water; the residual curve alone;
 scalar and array pH giving the same residual and the same refusal; metals far below the solubility of any of
 their solids staying dissolved (residual = influent); a reagent dose curve (any of the five reagents, 2-12 doses
-up to 1-5,000 mg/L, every solve verified; with caustic soda the pH never falls). Each property's examples are
-split over two worker processes with fixed seeds, so every run draws the same waters (about 2 minutes on two
-cores).
+up to 1-5,000 mg/L, every solve verified; with caustic soda the pH never falls) followed by the other dose entries
+(dose_for_ph for a drawn target pH, its answer checked on the curve; reagent_ceiling_ph; sludge_at_dose;
+raw_water_acidity); the setpoint design with drawn permit limits, margin, rule and effluent TSS, then the daily
+reagent table at its setpoint. A dose search may refuse only with a reason (DOSE_REFUSALS: a target below the
+water's pH or above the reagent's reach, the activity model's range). Each property's examples are split over
+two worker processes with fixed seeds, so every run draws the same waters (about 3 minutes on two cores).
 ``WORKBENCH_PROPERTY_SCALE=10`` multiplies every example count for a deeper run; ``-m slow`` selects these tests,
 ``-m "not slow"`` leaves them out. Fixed cases complete the picture: each metal alone over the pH scale at 5,
 25 and 50 °C in both solver modes, and the waters at the edge of the input space (pure water, major ions only,
@@ -47,6 +50,7 @@ from hypothesis import strategies as st
 import workbench as wb
 from workbench.chemistry import solver, tableau
 from workbench.chemistry import water_properties as wp
+from workbench.treatment.dose import SEARCH_PH_TOL
 from workbench.treatment.solubility import ph_index
 from workbench.treatment.water import METALS
 
@@ -57,7 +61,8 @@ EXAMPLES = {
     "residual curve": 7_000,
     "scalar and array": 200,
     "tiny metals": 300,
-    "titration": 3_000,
+    "titration": 3_000,  # with the dose entries: dose_for_ph, reagent_ceiling_ph, sludge_at_dose, acidity
+    "design": 300,  # design_setpoint, then daily_table at its setpoint (about 0.15 s a water: two-stage search)
 }
 
 MAX_METAL_MG_L = 5_000.0
@@ -358,7 +363,7 @@ def tiny_metals_stay_dissolved(kwargs, drawn_ph, counts: Counter) -> None:
             )
 
 
-def titration(kwargs, reagent, top_dose, n_doses, counts: Counter) -> None:
+def titration(kwargs, reagent, top_dose, n_doses, target_ph, counts: Counter) -> None:
     """A reagent dose curve (charge-balance mode, every dose one solve): each answer verified, or a clear refusal
     (ionic strength; a water without a measured pH cannot be titrated). With caustic soda the pH never falls as
     it is added. With the other reagents it can, and does in real waters: soda ash that precipitates a metal
@@ -385,6 +390,108 @@ def titration(kwargs, reagent, top_dose, n_doses, counts: Counter) -> None:
     assert np.isfinite(ph_curve).all()
     if reagent == "caustic":
         assert (np.diff(ph_curve) >= -1e-9).all(), f"pH falls as caustic is added: {ph_curve}"
+    dose_entries_verified(water, reagent, target_ph, top_dose, counts)
+
+
+#: refusals of a dose search that are answers, not failures (the field and a part of the message)
+DOSE_REFUSALS = (
+    ("target_ph", "allowed above the water's pH without reagent"),  # an alkali only raises the pH
+    ("target_ph", "cannot raise this water above pH"),  # above the reagent's ceiling here
+    ("target_ph", "reaches only pH"),  # beyond the most reagent searched
+    ("target_ph", "the activity model's range"),  # the water leaves the Davies range first
+    ("reagent", "the activity model's range"),
+    ("reagent", "does not saturate this water below"),
+)
+
+
+def _dose_refusal(err: wb.InputError, counts: Counter, entry: str) -> None:
+    if isinstance(err, wb.ModelRangeError):
+        assert_refusal_is_the_model_range(err)
+        counts[f"{entry} refused: ionic strength"] += 1
+        return
+    assert any(err.field == f and part in err.allowed for f, part in DOSE_REFUSALS), f"{entry}: {err}"
+    counts[f"{entry} refused: {err.field}"] += 1
+
+
+def dose_entries_verified(
+    water: wb.Water, reagent: str, target_ph: float, dose_mg_l: float, counts: Counter
+) -> None:
+    """dose_for_ph (its answer checked on the titration curve: the pH reached within the search's 0.0002 pH, no
+    smaller dose of a coarse grid at the target), reagent_ceiling_ph, sludge_at_dose, raw_water_acidity: each an
+    answer or a refusal that says why (DOSE_REFUSALS)."""
+    try:
+        found = wb.dose_for_ph(water, reagent, target_ph)
+    except wb.InputError as err:
+        _dose_refusal(err, counts, "dose_for_ph")
+    else:
+        counts["dose_for_ph solved"] += 1
+        assert math.isfinite(found) and found >= 0.0
+        check = wb.dose_curve(water, reagent, np.append(np.linspace(0.0, found, 9)[:-1], found))[
+            "pH"
+        ].to_numpy()
+        assert abs(check[-1] - target_ph) <= SEARCH_PH_TOL + 1e-9 or (found == 0 and check[-1] >= target_ph)
+        assert (check[:-1] < target_ph + SEARCH_PH_TOL).all(), "a smaller dose reaches the target"
+    try:
+        ceiling = wb.reagent_ceiling_ph(water, reagent)
+    except wb.InputError as err:
+        _dose_refusal(err, counts, "reagent_ceiling_ph")
+    else:
+        counts["reagent_ceiling_ph solved"] += 1
+        assert ceiling is None or 0.0 <= ceiling <= 14.0
+    try:
+        sludge = wb.sludge_at_dose(water, reagent, dose_mg_l)
+    except wb.ModelRangeError as err:
+        _dose_refusal(err, counts, "sludge_at_dose")
+    else:
+        counts["sludge_at_dose solved"] += 1
+        assert np.isfinite(sludge["mg_l"]).all() and (sludge["mg_l"] >= 0).all()
+    try:
+        acidity = wb.raw_water_acidity(water)
+    except wb.ModelRangeError as err:
+        _dose_refusal(err, counts, "raw_water_acidity")
+    else:
+        counts["raw_water_acidity solved"] += 1
+        assert np.isfinite([acidity.mineral_acidity_mg_l_caco3, acidity.total_acidity_mg_l_caco3]).all()
+
+
+def design(kwargs, limits_mg_l, margin, rule, tss, reagent, counts: Counter) -> None:
+    """design_setpoint with permit limits on the water's metals, then the reagent dose at its setpoint (or at its
+    first stage, or where it comes nearest to meeting every target) and the daily table at a drawn reagent: an
+    answer or a refusal that says why."""
+    water = make_water(kwargs, counts)
+    counts["waters"] += 1
+    metals = [m for m, v in water.metals_mg_l.items() if v > 0]
+    if not metals:
+        counts["no metal to design for"] += 1
+        return
+    limits = wb.permit_limits({m: limits_mg_l[m] for m in metals})
+    try:
+        result = wb.design_setpoint(water, limits, margin, rule=rule, effluent_tss_mg_l=tss)
+    except wb.ModelRangeError as err:
+        assert_refusal_is_the_model_range(err)
+        counts["design refused: ionic strength"] += 1
+        return
+    counts["design solved"] += 1
+    for low, high in result.windows:
+        assert 4.0 <= low <= high <= 13.5
+    if result.setpoint_ph is not None:
+        assert any(low <= result.setpoint_ph <= high for low, high in result.windows)
+        target = result.setpoint_ph
+    elif result.stages:
+        target = result.stages[0]["ph"]
+    else:  # the pH nearest to meeting every target, where the headroom table is computed
+        counts["design: no pH meets every target"] += 1
+        target = result.table.attrs["ph"]
+    assert 4.0 <= target <= 13.5
+    if water.ph is None:
+        return
+    try:
+        table = wb.daily_table(water, reagent, target, 100.0)
+    except wb.InputError as err:
+        _dose_refusal(err, counts, "daily_table")
+        return
+    counts["daily_table solved"] += 1
+    assert np.isfinite(table[["dose_mg_l", "reagent_kg_d", "dry_sludge_kg_d"]].to_numpy()).all()
 
 
 TINY_METAL_MG_L = _log_scale(1e-10, 1e-6)
@@ -406,6 +513,19 @@ PROPERTIES = {
             reagent=st.sampled_from(("lime", "caustic", "quicklime", "magnesium_hydroxide", "soda_ash")),
             top_dose=_log_scale(1.0, 5_000.0),
             n_doses=st.integers(2, 12),
+            target_ph=st.floats(6.0, 12.5),
+        ),
+    ),
+    "design": (
+        design,
+        dict(
+            # at least one metal; a measured pH, so that the dose at the setpoint follows
+            kwargs=water_inputs(st.dictionaries(st.sampled_from(list(METALS)), METAL_MG_L, min_size=1), PH),
+            limits_mg_l=st.fixed_dictionaries({k: _log_scale(0.01, 100.0) for k in METALS}),
+            margin=st.floats(0.1, 1.0),
+            rule=st.sampled_from(("widest_centre", "max_headroom")),
+            tss=st.none() | st.floats(0.0, 100.0),
+            reagent=st.sampled_from(("lime", "caustic", "quicklime", "magnesium_hydroxide", "soda_ash")),
         ),
     ),
     "tiny metals": (
@@ -509,6 +629,16 @@ def test_reagent_dose_curve_of_every_valid_water_is_verified_and_caustic_never_l
     counts = run_property("titration", EXAMPLES["titration"])
     assert counts["waters"] >= EXAMPLES["titration"] * SCALE
     assert counts["titration solved"] >= 0.5 * counts["waters"]
+    assert counts["dose_for_ph solved"] >= 0.1 * counts["waters"]  # many targets lie below the water's pH
+    assert counts["reagent_ceiling_ph solved"] >= 0.3 * counts["waters"]
+
+
+@pytest.mark.slow
+def test_setpoint_design_of_every_valid_water_and_the_dose_at_its_setpoint_are_answers_or_clear_refusals():
+    counts = run_property("design", EXAMPLES["design"])
+    assert counts["waters"] >= EXAMPLES["design"] * SCALE
+    assert counts["design solved"] >= 0.5 * counts["waters"]
+    assert counts["daily_table solved"] >= 0.1 * counts["waters"]
 
 
 def test_the_property_tests_draw_at_least_ten_thousand_waters():
