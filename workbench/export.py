@@ -62,6 +62,7 @@ from workbench.treatment.cautions import cautions as standard_cautions
 from workbench.treatment.provenance import constants_used, sources_of
 from workbench.treatment.setpoint import SetpointDesign
 from workbench.treatment.solubility import minimum_solubility, residual_curve
+from workbench.treatment.uncertainty import check_progress
 
 __all__ = [
     "FORMATS",
@@ -154,6 +155,7 @@ def build_figure_pack(
         raise InputError(
             "scenario", type(scenario).__name__, "a workbench Scenario (read_scenario) is required"
         )
+    check_progress(progress)
     water, d = scenario.water, scenario.design
     limits = scenario.limits_table()
     design = design_scenario(scenario, progress=progress)
@@ -449,13 +451,6 @@ def _check_out_dir(out_dir, within) -> Path:
     if path.exists() and not path.is_dir():
         raise InputError("out_dir", str(out_dir), "a folder (this path is an existing file)")
     return path
-
-
-def check_progress(progress):
-    """``progress`` as given when it is None or callable as progress(done, total)."""
-    if progress is not None and not callable(progress):
-        raise InputError("progress", progress, "a function progress(done, total), or None")
-    return progress
 
 
 def pack_file_names(formats: Sequence[str], tables: Sequence[str] = TABLE_STEMS) -> list[str]:

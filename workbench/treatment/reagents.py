@@ -33,6 +33,7 @@ from workbench.errors import DataError, InputError
 REAGENTS = ("lime", "quicklime", "caustic", "magnesium_hydroxide", "soda_ash")
 #: Largest dose accepted. [mg/L of product as sold]
 MAX_DOSE_MG_L = 200_000.0
+MAX_DOSES = 15_000  # doses solved in one call (as many as pH values: workbench.treatment.water.MAX_PH_POINTS)
 #: Calcium chloride, dosed as pure anhydrous CaCl2 to supply calcium (common ion for fluorite).
 CALCIUM_CHLORIDE_FORMULA = "CaCl2"
 CALCIUM_CHLORIDE_ADDS = MappingProxyType({"Ca^2+": 1.0, "Cl-": 2.0})
@@ -225,7 +226,14 @@ def check_purity(reagent: Reagent, purity) -> float:
 
 
 def check_doses(dose_mg_l, field: str = "dose_mg_l") -> np.ndarray:
-    """Doses as a 1-D float array, checked: finite, 0 to MAX_DOSE_MG_L. [mg/L]"""
+    """Doses as a 1-D float array, checked: numbers (not text, not True/False), finite, 0 to MAX_DOSE_MG_L, at
+    most MAX_DOSES of them. [mg/L]"""
+    count = len(dose_mg_l) if hasattr(dose_mg_l, "__len__") and not isinstance(dose_mg_l, str | bytes) else 1
+    if count > MAX_DOSES:
+        raise InputError(field, f"{count} values", f"at most {MAX_DOSES} doses per call")
+    items = np.atleast_1d(np.asarray(dose_mg_l, dtype=object)).ravel()
+    if any(isinstance(v, bool | np.bool_) or not isinstance(v, numbers.Real) for v in items):
+        raise InputError(field, dose_mg_l, "a number or a 1-D sequence of numbers (mg/L) is required")
     try:
         arr = np.atleast_1d(np.asarray(dose_mg_l, dtype=float))
     except (TypeError, ValueError):

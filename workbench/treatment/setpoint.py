@@ -27,7 +27,7 @@ from workbench.treatment.solubility import (
     equilibrium_within_model,
     model_warnings,
 )
-from workbench.treatment.uncertainty import UncertaintyBand, uncertainty_band
+from workbench.treatment.uncertainty import UncertaintyBand, check_progress, uncertainty_band
 from workbench.treatment.water import METALS, Water
 
 RULES = ("widest_centre", "max_headroom")
@@ -147,6 +147,7 @@ def design_setpoint(
         raise InputError("step", step, "allowed 0.001 to 0.5 pH units")
     tss = _check_tss(effluent_tss_mg_l)
     check_shift(water, solubility_shift)
+    check_progress(progress)
     used, notes = _limits_for(water, limits, basis)
     targets = used["limit_mg_l"] * margin
     metals = list(used.index)
@@ -178,7 +179,7 @@ def design_setpoint(
             samples=samples,
             seed=seed,
             default_uncertainty=default_uncertainty,
-            limits=used["limit_mg_l"],
+            limits=used["limit_mg_l"] if setpoint is not None else None,  # a probability needs the setpoint
             setpoint_ph=setpoint,
             solids=solids,
             solubility_shift=solubility_shift,

@@ -12,7 +12,7 @@ from __future__ import annotations
 
 import math
 import numbers
-from collections.abc import Callable
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 
 import numpy as np
@@ -25,6 +25,8 @@ from workbench.treatment.water import Water, as_array
 
 HELD_SOURCES = ("iapws_r11_07",)
 MAX_SAMPLES = 20_000
+#: samples x pH points of one band: the samples' curves are kept (x metals x 8 bytes) for the quantiles
+MAX_BAND_POINTS = 3_000_000
 POINTS_PER_CHUNK = 20_000
 PROGRESS_STEPS = 10  # a band is computed in at least this many batches (each reported to ``progress``)
 
@@ -133,9 +135,20 @@ def uncertainty_band(
         raise InputError(
             "quantiles", quantiles, "three increasing fractions in [0, 1], e.g. (0.05, 0.5, 0.95)"
         )
+    progress = check_progress(progress)
     grid = as_array(ph)
     if setpoint_ph is not None:
+        if np.size(setpoint_ph) != 1:
+            raise InputError("setpoint_ph", setpoint_ph, "one pH value between 0 and 14")
         grid = np.unique(np.append(grid, as_array(setpoint_ph)))
+    if samples * grid.size > MAX_BAND_POINTS:
+        raise InputError(
+            "samples",
+            samples,
+            f"at most {MAX_BAND_POINTS} samples x pH points per band ({grid.size} pH points here: up to "
+            f"{MAX_BAND_POINTS // grid.size} samples)",
+        )
+    limits = _check_band_limits(limits, water, setpoint_ph)
     asked = grid
     tab, nominal_eq, reach = equilibrium_within_model(
         water, asked, solids=solids, solubility_shift=solubility_shift
@@ -168,9 +181,7 @@ def uncertainty_band(
     whole = ph_index(asked)
     frames = [pd.DataFrame(qs[i], index=nominal.index, columns=metals).reindex(whole) for i in range(3)]
     prob = None
-    if limits is not None and not isinstance(limits, pd.Series):
-        limits = pd.Series(dict(limits), dtype=float)
-    if limits is not None and setpoint_ph is not None and np.isclose(grid, float(setpoint_ph)).any():
+    if limits is not None and np.isclose(grid, float(setpoint_ph)).any():  # limits come with a setpoint
         i = int(np.flatnonzero(np.isclose(grid, float(setpoint_ph)))[0])
         prob = pd.Series(
             {
@@ -193,6 +204,33 @@ def uncertainty_band(
         prob,
         None if setpoint_ph is None else float(setpoint_ph),
     )
+
+
+def check_progress(progress):
+    """``progress`` as given when it is None or callable as progress(done, total)."""
+    if progress is not None and not callable(progress):
+        raise InputError("progress", progress, "a function progress(done, total), or None")
+    return progress
+
+
+def _check_band_limits(limits, water: Water, setpoint_ph) -> pd.Series | None:
+    """The limits as a Series of positive finite mg/L for metals of the water (each named in a refusal)."""
+    if limits is None:
+        return None
+    if not isinstance(limits, pd.Series | Mapping):
+        raise InputError("limits", type(limits).__name__, "a mapping (or Series) of metal key to mg/L")
+    if setpoint_ph is None:
+        raise InputError("setpoint_ph", None, "a pH is required with limits: the probability is taken there")
+    items = dict(limits.items())
+    if not items:
+        raise InputError("limits", items, "at least one metal's limit, or None")
+    for metal, value in items.items():
+        if metal not in water.metals_mg_l:
+            known = ", ".join(water.metals_mg_l) or "none"
+            raise InputError("limits", metal, f"a limit for a metal of this water (its metals: {known})")
+        if isinstance(value, bool) or not isinstance(value, numbers.Real) or not (math.isfinite(value) and value > 0):
+            raise InputError(f"limits[{metal!r}]", value, "a positive number of mg/L")
+    return pd.Series(items, dtype=float)
 
 
 def _int(name, value, lo, hi) -> int:

@@ -65,6 +65,8 @@ MAJOR_IONS: Mapping[str, str] = MappingProxyType(
 )
 
 MAX_METAL_MG_L = 20_000.0
+#: pH values solved in one call: a grid from 0 to 14 at 0.001 is 14,001; a mixed water takes about 33 kB a point
+MAX_PH_POINTS = 15_000
 MAX_MAJOR_MG_L = 50_000.0
 DEFAULT_ALKALINITY_PH = (
     8.3  # pH at which a stated alkalinity is read when no pH is measured (phenolphthalein end point)
@@ -247,7 +249,12 @@ def metal_component(key: str) -> str:
 
 
 def as_array(values) -> np.ndarray:
-    """pH values as a 1-D float array, checked: finite, 0-14."""
+    """pH values as a 1-D float array, checked: finite, 0-14, at most MAX_PH_POINTS of them."""
+    count = len(values) if hasattr(values, "__len__") and not isinstance(values, str | bytes) else 1
+    if count > MAX_PH_POINTS:  # before any per-value work: a grid of millions would only end in MemoryError
+        raise InputError(
+            "ph", f"{count} values", f"at most {MAX_PH_POINTS} pH values per call (0 to 14 at 0.001 is 14001)"
+        )
     items = np.atleast_1d(np.asarray(values, dtype=object))
     if any(isinstance(v, (bool, np.bool_)) or not isinstance(v, numbers.Real) for v in items.ravel()):
         raise InputError("ph", values, "numbers from 0 to 14 are required")
