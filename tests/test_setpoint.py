@@ -128,7 +128,7 @@ def test_uncertainty_band():
 @pytest.mark.parametrize(
     "call, field",
     [
-        (lambda w: wb.design_setpoint(w, wb.permit_limits({"Hg": 0.01})), "limits"),
+        (lambda w: wb.permit_limits({"Hg": 0.01}), "permit limits"),  # refused at the entry, not later
         (lambda w: wb.permit_limits({"Zn": -1.0}), "permit limits['Zn']"),
         (lambda w: wb.permit_limits({"Zn": float("nan")}), "permit limits['Zn']"),
         (lambda w: wb.design_setpoint(w, wb.permit_limits({"Zn": 1.0}), margin=0.0), "margin"),

@@ -16,6 +16,7 @@ minimum-solubility table and the setpoint window are then recomputed on the cali
 from __future__ import annotations
 
 import math
+import numbers
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, replace
 
@@ -48,9 +49,12 @@ def _check(tidy, water) -> None:
         raise InputError(
             "jar tests", f"no column {missing[0]!r}", "the table read by read_jar_tests is required"
         )
-    bad = sorted(set(tidy["fraction"]) - {"dissolved", "total"})
+    if tidy.empty:
+        raise InputError("jar tests", "a table of 0 rows", "at least one jar result (the table read_jar_tests returns)")
+    bad = sorted(set(tidy["fraction"]) - {"dissolved", "total"}, key=str)
     if bad:
         raise InputError("jar tests: fraction", bad[0], "allowed 'dissolved' or 'total'")
+    _check_values(tidy)
     twice = tidy.duplicated(["jar", "metal", "fraction"])
     if twice.any():
         row = tidy[twice].iloc[0]
@@ -61,6 +65,59 @@ def _check(tidy, water) -> None:
         )
     if (tidy.groupby("jar")["pH"].nunique() > 1).any():
         raise InputError("jar tests: pH", "two pH values for one jar", "one measured pH per jar")
+
+
+def _numbers(column: pd.Series) -> np.ndarray:
+    """A column as floats; NaN where a cell is not a real number (text, True/False, None)."""
+    return np.array(
+        [float(v) if isinstance(v, numbers.Real) and not isinstance(v, bool | np.bool_) else np.nan for v in column],
+        dtype=float,
+    )
+
+
+def _refuse_first(tidy: pd.DataFrame, bad: np.ndarray, column: str, allowed: str) -> None:
+    if bad.any():
+        i = int(np.flatnonzero(bad)[0])
+        jar = tidy["jar"].iat[i]
+        raise InputError(f"jar tests row {tidy.index[i]!r} (jar {jar!r}) {column}", tidy[column].iat[i], allowed)
+
+
+def _check_values(tidy: pd.DataFrame) -> None:
+    """Every cell the calibration reads, as read_jar_tests writes it (a table built by hand is checked the same)."""
+    jar = tidy["jar"]
+    _refuse_first(tidy, (jar.isna() | (jar.astype(str).str.strip() == "")).to_numpy(), "jar", "a jar id")
+    _refuse_first(tidy, ~tidy["metal"].isin(list(METALS)).to_numpy(), "metal", f"known metals are {', '.join(METALS)}")
+    censored = tidy["censored"].to_numpy()
+    flags = np.array([isinstance(v, bool | np.bool_) for v in censored])
+    _refuse_first(tidy, ~flags, "censored", "True (below detection) or False")
+    censored = censored.astype(bool)
+    ph = _numbers(tidy["pH"])
+    _refuse_first(tidy, ~(np.isfinite(ph) & (ph >= 0) & (ph <= 14)), "pH", "a measured pH from 0 to 14")
+    dose = _numbers(tidy["dose_mg_l"])
+    _refuse_first(tidy, ~(np.isfinite(dose) & (dose >= 0)), "dose_mg_l", "a dose of 0 mg/L or more")
+    value = _numbers(tidy["value_mg_l"])
+    _refuse_first(
+        tidy,
+        ~censored & ~(np.isfinite(value) & (value > 0)),
+        "value_mg_l",
+        "a result above 0 mg/L (a result below detection: censored with its detection limit)",
+    )
+    _refuse_first(tidy, censored & ~np.isnan(value), "value_mg_l", "empty (NaN) for a result below detection")
+    limit = _numbers(tidy["detection_limit_mg_l"])
+    _refuse_first(
+        tidy, censored & ~(np.isfinite(limit) & (limit > 0)), "detection_limit_mg_l", "a detection limit above 0 mg/L"
+    )
+    if "temperature_c" in tidy.columns:
+        t = _numbers(tidy["temperature_c"])
+        bad = tidy["temperature_c"].notna().to_numpy() & ~np.isfinite(t)  # text, True/False, inf
+        _refuse_first(tidy, bad, "temperature_c", "a temperature in °C, or empty (the water's)")
+
+
+def _threshold(name: str, value, low: float, high: float, low_open: bool, allowed: str) -> float:
+    ok = isinstance(value, numbers.Real) and not isinstance(value, bool) and math.isfinite(value)
+    if not ok or not ((value > low) if low_open else (value >= low)) or value > high:
+        raise InputError(name, value, allowed)
+    return float(value)
 
 
 def _jars(tidy: pd.DataFrame) -> pd.DataFrame:
@@ -504,6 +561,8 @@ def calibrated_shift(fits: Mapping[str, ShiftFit], *, bound: str = "estimate") -
     """
     if bound not in BOUNDS:
         raise InputError("bound", bound, f"allowed {', '.join(BOUNDS)}")
+    if not isinstance(fits, Mapping) or not all(isinstance(f, ShiftFit) for f in fits.values()):
+        raise InputError("fits", type(fits).__name__, "the mapping fit_solubility_shifts returns (metal -> ShiftFit)")
     attr = {"estimate": "shift", "low": "low", "high": "high"}[bound]
     out = {}
     for key, fit in fits.items():
@@ -687,6 +746,16 @@ def flag_jars(
         Columns ``flag``, ``metal`` ("" for a jar flag), ``jars`` (comma-separated ids), ``reason``; no rows when
         nothing is suspect.
     """
+    far_log = _threshold(
+        "far_log", far_log, 0.0, 10.0, True, "a number of log10 units above 0, up to 10 (1: ten times)"
+    )
+    carryover_ratio = _threshold(
+        "carryover_ratio", carryover_ratio, 1.0, 1e6, False, "a ratio of total to dissolved of 1 or more"
+    )
+    uncaptured_fraction = _threshold(
+        "uncaptured_fraction", uncaptured_fraction, 0.0, 1.0, False, "a fraction from 0 to 1"
+    )
+    ph_tolerance = _threshold("ph_tolerance", ph_tolerance, 0.0, 14.0, True, "pH units above 0, up to 14")
     ov = overlay(tidy, water, solids=solids, activity=activity)
     flags = _complexant_flags(ov, far_log) + _carry_over_flags(ov, carryover_ratio, uncaptured_fraction)
     flags += _dose_flags(tidy, water, ph_tolerance, solids)

@@ -10,12 +10,14 @@ from __future__ import annotations
 import csv
 import math
 import numbers
+import re
 from collections.abc import Mapping
 
 import pandas as pd
 
 from workbench._paths import data_dir
 from workbench.errors import InputError
+from workbench.treatment.water import METALS, REFUSED_METALS
 
 BASES = ("daily_max", "monthly_avg", "four_day_avg", "instantaneous_max", "permit")
 COLUMNS = ["metal", "basis", "limit_mg_l", "source", "origin"]
@@ -75,8 +77,7 @@ def permit_limits(
         raise InputError("source", source, "say where the limits come from (e.g. the permit number)")
     rows = []
     for metal, value in limits_mg_l.items():
-        if not isinstance(metal, str) or not metal:
-            raise InputError("permit limits", metal, "metal names are text, e.g. 'Zn'")
+        check_permit_metal(metal)
         if (
             isinstance(value, bool)
             or not isinstance(value, numbers.Real)
@@ -86,6 +87,39 @@ def permit_limits(
             raise InputError(f"permit limits[{metal!r}]", value, "a positive number of mg/L is required")
         rows.append((metal, basis, float(value), source, "permit"))
     return pd.DataFrame(rows, columns=COLUMNS)
+
+
+_ION = re.compile(r"^([A-Za-z]{1,2})\s*(?:\^?\s*(\d)\s*\+|(\++))$")  # Zn2+, Zn^2+, Zn++, Ag+
+
+
+def check_permit_metal(metal) -> str:
+    """A permit limit's metal key, exactly as :data:`workbench.treatment.water.METALS` writes it; anything else is
+    refused with the key to use (the ion, another case) or the reason (Cr(VI), cyanide)."""
+    known = f"known metals are {', '.join(METALS)}"
+    if not isinstance(metal, str) or not metal.strip():
+        raise InputError("permit limits", metal, f"metal keys are text, e.g. 'Zn'; {known}")
+    if metal in REFUSED_METALS:
+        raise InputError(f"permit limits[{metal!r}]", metal, REFUSED_METALS[metal])
+    if metal in METALS:
+        return metal
+    by_case = {k.lower(): k for k in [*METALS, *REFUSED_METALS]}
+    ion = _ION.match(metal.strip())
+    if ion:
+        element = by_case.get(ion.group(1).lower())
+        charge = int(ion.group(2)) if ion.group(2) else len(ion.group(3) or "")
+        key = {("Fe", 2): "Fe(II)", ("Fe", 3): "Fe", ("Cr", 6): "Cr(VI)"}.get((element, charge), element)
+        if key in REFUSED_METALS:
+            raise InputError(f"permit limits[{metal!r}]", metal, REFUSED_METALS[key])
+        if key in METALS:
+            raise InputError(
+                "permit limits", metal, f"write the metal key {key!r}: limits are on the total element, not an ion"
+            )
+    if metal.strip().lower() in by_case:
+        key = by_case[metal.strip().lower()]
+        if key in REFUSED_METALS:
+            raise InputError(f"permit limits[{metal!r}]", metal, REFUSED_METALS[key])
+        raise InputError("permit limits", metal, f"write the metal key {key!r} (keys are written exactly so)")
+    raise InputError("permit limits", metal, known)
 
 
 def combine_limits(*tables: pd.DataFrame) -> pd.DataFrame:
