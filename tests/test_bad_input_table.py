@@ -92,19 +92,60 @@ rows tested.
 | `wb.dose_for_ph` | `target_ph=nan` | `target_ph`: a pH between 0 and 14 |
 | `wb.dose_for_ph` | `target_ph=5` (below pH 7) | `target_ph`: allowed above the water's pH without reagent |
 | `wb.dose_for_ph` | `target_ph=13.9`, lime | `target_ph`: its ceiling here |
+| `wb.residual_curve` | `ph=` 3 million points | `ph`: at most 15000 pH values per call |
+| `wb.dose_curve` | `dose_mg_l='100'` (text) | `dose_mg_l`: a number or a 1-D sequence of numbers (mg/L) |
+| `wb.dose_curve` | `dose_mg_l=[True]` | `dose_mg_l`: a number or a 1-D sequence of numbers (mg/L) |
+| `wb.dose_curve` | `dose_mg_l=` 20,000 doses | `dose_mg_l`: at most 15000 doses per call |
+| `wb.uncertainty_band` | `samples=20000` on 281 pH points | `samples`: at most 3000000 samples x pH points per band |
+| `wb.uncertainty_band` | `progress=5` (not a function) | `progress`: a function progress(done, total), or None |
+| `wb.uncertainty_band` | `limits={'Zn': 0}` | `limits['Zn']`: a positive number of mg/L |
+| `wb.uncertainty_band` | `limits={'Zn': nan}` | `limits['Zn']`: a positive number of mg/L |
+| `wb.uncertainty_band` | `limits={'Hg': 1.0}` (not in the water) | `limits`: a limit for a metal of this water |
+| `wb.uncertainty_band` | `limits=` without `setpoint_ph` | `setpoint_ph`: a pH is required with limits |
+| `wb.design_setpoint` | `progress=5` (not a function) | `progress`: a function progress(done, total), or None |
+| `wb.permit_limits` | `{'Hg': 1.0}` (unknown metal) | `permit limits`: known metals are Cu, Ni, Zn |
+| `wb.permit_limits` | `{'zn': 1.0}` (wrong case) | `permit limits`: write the metal key 'Zn' |
+| `wb.permit_limits` | `{'Cr(VI)': 1.0}` | `permit limits['Cr(VI)']`: must be reduced to Cr(III) |
+| `wb.permit_limits` | `{'Zn2+': 1.0}` (an ion) | `permit limits`: write the metal key 'Zn' |
+| `wb.fit_solubility_shifts` | a jar table of 0 rows | `jar tests`: at least one jar result |
+| `wb.overlay` | `value_mg_l=-0.5` in a row | `jar tests row 0 (jar '1') value_mg_l`: a result above 0 mg/L |
+| `wb.overlay` | `pH=15` in a row | `jar tests row 0 (jar '1') pH`: a measured pH from 0 to 14 |
+| `wb.flag_jars` | `far_log=-1` | `far_log`: a number of log10 units above 0 |
+| `wb.flag_jars` | `far_log=nan` | `far_log`: a number of log10 units above 0 |
+| `wb.flag_jars` | `carryover_ratio=0.5` | `carryover_ratio`: a ratio of total to dissolved of 1 or more |
+| `wb.flag_jars` | `uncaptured_fraction=1.5` | `uncaptured_fraction`: a fraction from 0 to 1 |
+| `wb.flag_jars` | `ph_tolerance=-0.1` | `ph_tolerance`: pH units above 0 |
+| `wb.calibrated_shift` | `fits={'Zn': 0.5}` (not fits) | `fits`: the mapping fit_solubility_shifts returns |
+| `wb.read_jar_tests` | .xlsx, 2 million shared strings | `bomb.xlsx: xl/sharedStrings.xml`: (limit: shared strings) |
+| `wb.read_jar_tests` | .xlsx, 500x2**20 declared | `bomb.xlsx: xl/worksheets/sheet1.xml`: limit: declared dimensions) |
+| `wb.read_jar_tests` | .xlsx, a cell in row 1,048,576 | `bomb.xlsx: xl/worksheets/sheet1.xml`: (limit: cells) |
+| `wb.read_jar_tests` | .xlsx, 190 MB of spaces unpacked | `bomb.xlsx`: (limit: unpacked size) |
+| `wb.read_scenario` | TOML nested 100,000 deep | `scenario file`: valid TOML nested a few levels deep is required |
+| `wb.save_scenario` | a target `notes.csv` (not .toml) | `scenario file`: a file name ending in .toml |
+| `export_figure_pack` | a folder holding other files | `out_dir`: a new or empty folder, or one an earlier pack wrote |
+| `export_figure_pack` | a pack file changed since it was written | `file`: changed since an earlier pack wrote it |
+| `export_figure_pack` | `keep=` the scenario, in the way | `out_dir`: does not replace its own input |
+| `export_figure_pack` | a folder under a file (unwritable) | `out_dir`: can create and write to |
+| `export_figure_pack` | `progress=5` (not a function) | `progress`: a function progress(done, total), or None |
 
 A Water with an empty metal mapping (``metals_mg_l={}``: pure water, or major ions only) is valid, not refused.
 """
 
 from __future__ import annotations
 
+import hashlib
+import json
 import math
 import re
 from pathlib import Path
 
+import hostile_files as hostile
+import numpy as np
+import pandas as pd
 import pytest
 
 import workbench as wb
+from workbench.export import export_figure_pack
 from workbench.scenario import MAX_FILE_BYTES as MAX_SCENARIO_BYTES
 from workbench.scenario import demo_scenario_path
 from workbench.treatment import jar_tests
@@ -131,6 +172,27 @@ def _scenario(folder: Path, name: str, text: str) -> Path:
 
 
 DEMO_SCENARIO = demo_scenario_path().read_text(encoding="utf-8")
+
+
+def _jars(**row0) -> pd.DataFrame:
+    """The small jar table, read; ``row0`` replaces values in its first row (a table changed by hand)."""
+    tidy = wb.read_jar_tests(JARS.encode("utf-8"), file_format="csv")
+    for column, value in row0.items():
+        tidy.loc[0, column] = value
+    return tidy
+
+
+def _pack_scenario():
+    return wb.read_scenario(demo_scenario_path())
+
+
+def _changed_pack(folder: Path) -> Path:
+    """A folder an earlier pack wrote (its manifest) whose summary.html was edited since."""
+    _file(folder, "summary.html", b"edited by hand")
+    files = {"summary.html": hashlib.sha256(b"as the pack wrote it").hexdigest()}
+    manifest = {"workbench_pack": 1, "files": files}
+    _file(folder, "pack_manifest.json", json.dumps(manifest).encode("utf-8"))
+    return folder
 
 # (entry point, bad input as written in the table, call(tmp_path), field named, what is allowed: a fragment)
 ROWS = [
@@ -726,6 +788,257 @@ ROWS = [
         lambda tmp: wb.dose_for_ph(WATER, "lime", 13.9),
         "target_ph",
         "its ceiling here",
+    ),
+    # ------------------------------------------------------------------ sizes
+    (
+        "wb.residual_curve",
+        "`ph=` 3 million points",
+        lambda tmp: wb.residual_curve(WATER, np.linspace(0.0, 14.0, 3_000_000)),
+        "ph",
+        "at most 15000 pH values per call",
+    ),
+    (
+        "wb.dose_curve",
+        "`dose_mg_l='100'` (text)",
+        lambda tmp: wb.dose_curve(WATER, "lime", "100"),
+        "dose_mg_l",
+        "a number or a 1-D sequence of numbers (mg/L)",
+    ),
+    (
+        "wb.dose_curve",
+        "`dose_mg_l=[True]`",
+        lambda tmp: wb.dose_curve(WATER, "lime", [True]),
+        "dose_mg_l",
+        "a number or a 1-D sequence of numbers (mg/L)",
+    ),
+    (
+        "wb.dose_curve",
+        "`dose_mg_l=` 20,000 doses",
+        lambda tmp: wb.dose_curve(WATER, "lime", np.linspace(0.0, 100.0, 20_000)),
+        "dose_mg_l",
+        "at most 15000 doses per call",
+    ),
+    (
+        "wb.uncertainty_band",
+        "`samples=20000` on 281 pH points",
+        lambda tmp: wb.uncertainty_band(WATER, np.linspace(0.0, 14.0, 281), samples=20_000),
+        "samples",
+        "at most 3000000 samples x pH points per band",
+    ),
+    (
+        "wb.uncertainty_band",
+        "`progress=5` (not a function)",
+        lambda tmp: wb.uncertainty_band(WATER, [7.0], samples=2, progress=5),
+        "progress",
+        "a function progress(done, total), or None",
+    ),
+    (
+        "wb.uncertainty_band",
+        "`limits={'Zn': 0}`",
+        lambda tmp: wb.uncertainty_band(WATER, [9.0], samples=2, limits={"Zn": 0}, setpoint_ph=9.0),
+        "limits['Zn']",
+        "a positive number of mg/L",
+    ),
+    (
+        "wb.uncertainty_band",
+        "`limits={'Zn': nan}`",
+        lambda tmp: wb.uncertainty_band(WATER, [9.0], samples=2, limits={"Zn": math.nan}, setpoint_ph=9.0),
+        "limits['Zn']",
+        "a positive number of mg/L",
+    ),
+    (
+        "wb.uncertainty_band",
+        "`limits={'Hg': 1.0}` (not in the water)",
+        lambda tmp: wb.uncertainty_band(WATER, [9.0], samples=2, limits={"Hg": 1.0}, setpoint_ph=9.0),
+        "limits",
+        "a limit for a metal of this water",
+    ),
+    (
+        "wb.uncertainty_band",
+        "`limits=` without `setpoint_ph`",
+        lambda tmp: wb.uncertainty_band(WATER, [9.0], samples=2, limits={"Zn": 1.0}),
+        "setpoint_ph",
+        "a pH is required with limits",
+    ),
+    (
+        "wb.design_setpoint",
+        "`progress=5` (not a function)",
+        lambda tmp: wb.design_setpoint(WATER, LIMITS, progress=5),
+        "progress",
+        "a function progress(done, total), or None",
+    ),
+    # ------------------------------------------------------------------ permit limits
+    (
+        "wb.permit_limits",
+        "`{'Hg': 1.0}` (unknown metal)",
+        lambda tmp: wb.permit_limits({"Hg": 1.0}),
+        "permit limits",
+        "known metals are Cu, Ni, Zn",
+    ),
+    (
+        "wb.permit_limits",
+        "`{'zn': 1.0}` (wrong case)",
+        lambda tmp: wb.permit_limits({"zn": 1.0}),
+        "permit limits",
+        "write the metal key 'Zn'",
+    ),
+    (
+        "wb.permit_limits",
+        "`{'Cr(VI)': 1.0}`",
+        lambda tmp: wb.permit_limits({"Cr(VI)": 1.0}),
+        "permit limits['Cr(VI)']",
+        "must be reduced to Cr(III)",
+    ),
+    (
+        "wb.permit_limits",
+        "`{'Zn2+': 1.0}` (an ion)",
+        lambda tmp: wb.permit_limits({"Zn2+": 1.0}),
+        "permit limits",
+        "write the metal key 'Zn'",
+    ),
+    # ------------------------------------------------------------------ jar-test calibration
+    (
+        "wb.fit_solubility_shifts",
+        "a jar table of 0 rows",
+        lambda tmp: wb.fit_solubility_shifts(_jars().iloc[0:0], WATER),
+        "jar tests",
+        "at least one jar result",
+    ),
+    (
+        "wb.overlay",
+        "`value_mg_l=-0.5` in a row",
+        lambda tmp: wb.overlay(_jars(value_mg_l=-0.5), WATER),
+        "jar tests row 0 (jar '1') value_mg_l",
+        "a result above 0 mg/L",
+    ),
+    (
+        "wb.overlay",
+        "`pH=15` in a row",
+        lambda tmp: wb.overlay(_jars(pH=15.0), WATER),
+        "jar tests row 0 (jar '1') pH",
+        "a measured pH from 0 to 14",
+    ),
+    (
+        "wb.flag_jars",
+        "`far_log=-1`",
+        lambda tmp: wb.flag_jars(_jars(), WATER, far_log=-1.0),
+        "far_log",
+        "a number of log10 units above 0",
+    ),
+    (
+        "wb.flag_jars",
+        "`far_log=nan`",
+        lambda tmp: wb.flag_jars(_jars(), WATER, far_log=math.nan),
+        "far_log",
+        "a number of log10 units above 0",
+    ),
+    (
+        "wb.flag_jars",
+        "`carryover_ratio=0.5`",
+        lambda tmp: wb.flag_jars(_jars(), WATER, carryover_ratio=0.5),
+        "carryover_ratio",
+        "a ratio of total to dissolved of 1 or more",
+    ),
+    (
+        "wb.flag_jars",
+        "`uncaptured_fraction=1.5`",
+        lambda tmp: wb.flag_jars(_jars(), WATER, uncaptured_fraction=1.5),
+        "uncaptured_fraction",
+        "a fraction from 0 to 1",
+    ),
+    (
+        "wb.flag_jars",
+        "`ph_tolerance=-0.1`",
+        lambda tmp: wb.flag_jars(_jars(), WATER, ph_tolerance=-0.1),
+        "ph_tolerance",
+        "pH units above 0",
+    ),
+    (
+        "wb.calibrated_shift",
+        "`fits={'Zn': 0.5}` (not fits)",
+        lambda tmp: wb.calibrated_shift({"Zn": 0.5}),
+        "fits",
+        "the mapping fit_solubility_shifts returns",
+    ),
+    # ------------------------------------------------------------------ hostile files
+    (
+        "wb.read_jar_tests",
+        ".xlsx, 2 million shared strings",
+        lambda tmp: wb.read_jar_tests(_file(tmp, "bomb.xlsx", hostile.shared_strings_bomb())),
+        "bomb.xlsx: xl/sharedStrings.xml",
+        "(limit: shared strings)",
+    ),
+    (
+        "wb.read_jar_tests",
+        ".xlsx, 500x2**20 declared",
+        lambda tmp: wb.read_jar_tests(_file(tmp, "bomb.xlsx", hostile.dimension_bomb())),
+        "bomb.xlsx: xl/worksheets/sheet1.xml",
+        "limit: declared dimensions)",
+    ),
+    (
+        "wb.read_jar_tests",
+        ".xlsx, a cell in row 1,048,576",
+        lambda tmp: wb.read_jar_tests(_file(tmp, "bomb.xlsx", hostile.far_cell_bomb())),
+        "bomb.xlsx: xl/worksheets/sheet1.xml",
+        "(limit: cells)",
+    ),
+    (
+        "wb.read_jar_tests",
+        ".xlsx, 190 MB of spaces unpacked",
+        lambda tmp: wb.read_jar_tests(_file(tmp, "bomb.xlsx", hostile.whitespace_bomb())),
+        "bomb.xlsx",
+        "(limit: unpacked size)",
+    ),
+    (
+        "wb.read_scenario",
+        "TOML nested 100,000 deep",
+        lambda tmp: wb.read_scenario(_scenario(tmp, "deep.toml", hostile.deep_toml(100_000))),
+        "scenario file",
+        "valid TOML nested a few levels deep is required",
+    ),
+    (
+        "wb.save_scenario",
+        "a target `notes.csv` (not .toml)",
+        lambda tmp: wb.save_scenario(wb.read_scenario(demo_scenario_path()), tmp / "notes.csv"),
+        "scenario file",
+        "a file name ending in .toml",
+    ),
+    (
+        "export_figure_pack",
+        "a folder holding other files",
+        lambda tmp: export_figure_pack(_pack_scenario(), _file(tmp, "summary.html", b"own").parent),
+        "out_dir",
+        "a new or empty folder, or one an earlier pack wrote",
+    ),
+    (
+        "export_figure_pack",
+        "a pack file changed since it was written",
+        lambda tmp: export_figure_pack(_pack_scenario(), _changed_pack(tmp), formats=("html",)),
+        "file",
+        "changed since an earlier pack wrote it",
+    ),
+    (
+        "export_figure_pack",
+        "`keep=` the scenario, in the way",
+        lambda tmp: export_figure_pack(
+            _pack_scenario(), tmp, keep=[_scenario(tmp, "scenario.toml", DEMO_SCENARIO)], overwrite=True
+        ),
+        "out_dir",
+        "does not replace its own input",
+    ),
+    (
+        "export_figure_pack",
+        "a folder under a file (unwritable)",
+        lambda tmp: export_figure_pack(_pack_scenario(), _file(tmp, "report.txt", b"x") / "pack"),
+        "out_dir",
+        "can create and write to",
+    ),
+    (
+        "export_figure_pack",
+        "`progress=5` (not a function)",
+        lambda tmp: export_figure_pack(_pack_scenario(), tmp / "pack", progress=5),
+        "progress",
+        "a function progress(done, total), or None",
     ),
 ]
 
