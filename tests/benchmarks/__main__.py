@@ -7,7 +7,8 @@ correct; dose curve (200 doses) <= 50 ms; Monte Carlo 1000 samples x 281 pH <= 5
 import <= 0.5 s. The first minute: first result in a process whose kernel was never compiled <= 3 s with one
 message; the setpoint panel drawn <= 1.5 s after its cell runs (kernel cached); `make test` <= 6 min with
 >= 10,000 drawn waters; `make run` installs the runtime dependencies only; a distribution name free on PyPI; the
-demo files, the lab address and pH labels. The figures are printed as measured, met or not.
+demo files, the lab address and pH labels. Each hostile .xlsx (tests/hostile_files.py) refused in < 2 s, with its
+peak memory. The figures are printed as measured, met or not.
 """
 
 from __future__ import annotations
@@ -221,6 +222,43 @@ def case_widget(repeat):
             "target 150 ms (includes the reagent dose at the new setpoint)",
         )
     ]
+
+
+def case_spreadsheet_bombs(repeat):
+    """Hostile .xlsx files (tests/hostile_files.py) refused by the jar-test reader: the time to the refusal
+    (median) and, from a separate traced run, the peak memory it took; target below 2 s each."""
+    import workbench as wb
+    from tests import hostile_files as hostile
+
+    bombs = {
+        "2 million shared strings": hostile.shared_strings_bomb,
+        "8 million shared strings": lambda: hostile.shared_strings_bomb(8_000_000),
+        "500 columns x 1,048,576 rows declared": hostile.dimension_bomb,
+        "one cell in row 1,048,576": hostile.far_cell_bomb,
+        "a million empty cells": hostile.cells_bomb,
+        "190 MB of whitespace": hostile.whitespace_bomb,
+        "nested entities": hostile.entity_bomb,
+    }
+    rows = []
+    for name, build in bombs.items():
+        data = build()
+
+        def refuse(data=data, name=name):
+            try:
+                wb.read_jar_tests(data, file_format="xlsx")
+            except wb.InputError as exc:
+                return str(exc)
+            raise AssertionError(f"{name}: not refused")
+
+        seconds = _median_time(refuse, repeat)
+        tracemalloc.start()
+        message = refuse()
+        peak = tracemalloc.get_traced_memory()[1]
+        tracemalloc.stop()
+        limit = message[message.index("(limit: ") + 8 : message.index(")", message.index("(limit: "))]
+        note = f"{len(data) / 1000:.0f} kB file; limit: {limit}; peak {peak / 2**20:.1f} MiB; target 2 s"
+        rows.append((f"14 xlsx bomb: {name}", seconds, note))
+    return rows
 
 
 def case_import(repeat):
@@ -517,6 +555,7 @@ def main(argv=None) -> int:
     rows += case_install()
     rows += case_name()
     rows += case_demo_and_lab()
+    rows += case_spreadsheet_bombs(repeat)
     print(f"{'case':52s} {'time':>12s}  note")
     for name, seconds, note in rows:
         if seconds != seconds:  # a check, not a time
