@@ -7,6 +7,7 @@ import pandas as pd
 import pytest
 
 import workbench as wb
+from workbench.chemistry import solver, tableau
 from workbench.scenario import demo_water
 
 # 40 CFR 433.15 (PSES, existing metal-finishing sources), daily maximum / monthly average, mg/L (regulation text)
@@ -168,3 +169,37 @@ def test_design_completes_when_the_water_without_its_complexant_is_not_a_valid_a
         replace(water, edta_mg_l=0.0)
     design = wb.design_setpoint(water, wb.permit_limits({"Zn": 0.1}))
     assert any("without EDTA is not computed" in note for note in design.notes)
+
+
+def test_two_stage_search_settles_where_a_hydroxide_must_replace_a_carbonate_started_from_a_neighbour():
+    """Stage 2 of this drawn water (found by drawing waters), started from neighbours holding siderite and CoCO3,
+    must end with Fe(OH)2 and Co(OH)2 instead: the pass with Fe(OH)2 beside siderite failed, Fe(OH)2 was taken
+    back each time and the point went round the same sets (or, one solid at a time, settled supersaturated and
+    failed verification). Now siderite, negative, leaves; every point settles, and each stage-2 point equals the
+    same point solved alone."""
+    water = wb.Water(
+        metals_mg_l={"Fe(II)": 22.857690559017648, "Co": 826.0601935131975},
+        chloride_mg_l=1.0, ammonia_mg_l_n=1.0, sulfate_mg_l=0.0427176340651354, fluoride_mg_l=1.0,
+        edta_mg_l=2872.26723757999, calcium_mg_l=0.05206076751485864, citrate_mg_l=1.0, sodium_mg_l=1.0,
+        magnesium_mg_l=1.0, alkalinity_mg_l_caco3=4220.026511089017, temperature_c=47.2769254578913,
+    )  # fmt: skip
+    limits = wb.permit_limits({"Fe(II)": 0.017460570322657524, "Co": 1.0})
+    wb.design_setpoint(water, limits, 0.228840430981324)  # raised ConvergenceError before
+    # the stage-2 batch as the two-stage search builds it: stage-1 effluents at pH 5-11.5, each at pH 6-12.5
+    totals = water.totals()
+    tab = tableau.build(tuple(dict.fromkeys([*totals, "Na+", "Cl-"])), water.temperature_c, "fresh")
+    t = np.zeros(len(tab.components))
+    for comp, value in totals.items():
+        t[tab.component(comp)] = value
+    ph1, ph2 = np.round(np.arange(5.0, 11.5 + 1e-9, 0.1), 3), np.round(np.arange(6.0, 12.5 + 1e-9, 0.05), 3)
+    eq1 = solver.solve(tab, t, ph1)
+    effluent = eq1.dissolved().copy()
+    effluent[:, tab.component("Na+")] += np.maximum(eq1.strong_base, 0.0)
+    effluent[:, tab.component("Cl-")] += np.maximum(-eq1.strong_base, 0.0)
+    effluent[:, 0] = 0.0
+    t2, p2 = np.repeat(effluent, ph2.size, axis=0), np.tile(ph2, ph1.size)
+    batch = solver.solve(tab, t2, p2, engine="numpy")
+    for row in (124, 125, 130, 131 * 10 + 124):  # points that failed (stage-1 pH 5.0 and 6.0, stage-2 pH 12.2+)
+        alone = solver.solve(tab, t2[row : row + 1], p2[row : row + 1], engine="numpy")
+        np.testing.assert_allclose(batch.dissolved()[row, 1:], alone.dissolved()[0, 1:], rtol=1e-8, atol=1e-20)
+        assert (batch.solid_amount[row] > 0).tolist() == (alone.solid_amount[0] > 0).tolist()

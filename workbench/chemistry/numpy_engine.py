@@ -49,6 +49,7 @@ from workbench.errors import ConvergenceError, ModelRangeError
 
 WAIT_PASSES = 3  # passes a solid waits after its entry made a Newton pass fail
 CYCLE_GUARD = 6  # after this many changes of a point's solids, they enter one at a time
+CYCLING_DROP_ITER = 20  # a pass at such a point stops on a negative amount after this many iterations, not 4
 MAX_ITER = 100  # Newton iterations per pass
 MAX_IONIC_HALVINGS = 6  # halvings of one ionic-strength step that a failed Newton pass may take
 MAX_ROUNDS = 200  # passes (active-set and ionic-strength updates)
@@ -119,6 +120,11 @@ def iterate(state: State, todo: np.ndarray) -> None:
         state.restore(todo)
         stuck = state.newton(todo)
         if stuck.size:
+            # a pass that fails where a solid present before the last update holds a negative amount drops that
+            # solid (the most negative) and keeps the new one: the set cannot stay as it was (e.g. Fe(OH)2 added
+            # beside siderite at a pH where only the hydroxide holds; taking the hydroxide back cycled)
+            dropped = state.drop_negative(stuck)
+            stuck = stuck[~dropped]
             # a pass that does not converge after solids were just added goes back to the set before, and
             # those solids wait a few passes; otherwise (e.g. a far neighbour's state) the point starts again
             # once from the cold initial guess, without solids; a further failure is an error
@@ -391,7 +397,7 @@ class State(Problem):
                 # a solid with a negative amount will leave the set anyway: stop polishing a set that cannot stay.
                 # Not at a point whose set keeps changing: an amount that is negative before convergence can end
                 # positive, and dropping the solid early sends the point round the same sets again
-                cycling = self.changes[pending] >= CYCLE_GUARD
+                cycling = (self.changes[pending] >= CYCLE_GUARD) & (it < CYCLING_DROP_ITER)
                 done |= (self.active[pending] & (n_new < 0.0)).any(axis=1) & ~cycling
             lam = self._step_limit(pending, dx, c)
             x0 = self.x[pending]
@@ -531,6 +537,12 @@ class State(Problem):
         act = act & ~drop
         si = self._si(idx)
         cand = ~act & self.possible[idx] & (si > TOL_SATURATION) & ~changed[:, None]
+        # a supersaturated solid that waits (taken back after its entry made a pass fail) keeps the point from
+        # settling, and the others may enter meanwhile: without this, a point taking one solid at a time whose
+        # most supersaturated solid waits added none, settled, and failed verification
+        waiting = self.waiting[idx] > 0
+        held = (cand & waiting).any(axis=1)
+        cand &= ~waiting
         # a point whose set keeps changing takes one solid at a time (the most supersaturated): breaks cycles
         one_at_a_time = self.changes[idx] >= CYCLE_GUARD
         if cand.any():
@@ -542,11 +554,11 @@ class State(Problem):
             for r in range(self.s):
                 k = order[:, r]
                 ok = cand[rows, k] & ~(claimed & uses[k]).any(axis=1) & ~(one_at_a_time & (r > 0))
-                ok &= self.waiting[idx][rows, k] == 0
                 act[rows[ok], k[ok]] = True
                 claimed[ok] |= uses[k[ok]]
                 changed |= ok
             self._keep_independent(idx, act, cand & act)
+        changed |= held
         self.added[idx] = act & ~self.active[idx]
         self.waiting[idx] = np.maximum(self.waiting[idx] - 1, 0)
         self.active[idx] = act
@@ -572,6 +584,22 @@ class State(Problem):
         self.ionic[rows] = np.sqrt(self.ionic[rows] * self.ionic_before[rows])
         self.halvings[rows] += 1
         return ok
+
+    def drop_negative(self, idx) -> np.ndarray:
+        """Where a solid present before the last update has a negative amount, drop the most negative one
+        (relative to what it could hold); returns, per point, whether one was dropped."""
+        neg = self.active[idx] & ~self.added[idx] & (self.n[idx] < 0.0)
+        some = neg.any(axis=1)
+        if not some.any():
+            return some
+        rows = idx[some]
+        scale = np.abs(self.t[rows, 1:]) @ (np.abs(self.tab.b[:, 1:]) > 0).T + 1e-300  # (k, s)
+        worst = np.argmin(np.where(neg[some], self.n[rows] / scale, np.inf), axis=1)
+        self.active[rows, worst] = False
+        self.n[rows, worst] = 0.0
+        self.changes[rows] += 1
+        self.ionic_before[rows] = np.nan
+        return some
 
     def revert_added(self, idx) -> np.ndarray:
         """Take back the solids added at the last update (they wait WAIT_PASSES passes); returns, per point,
