@@ -22,6 +22,8 @@ rows tested.
 | `wb.Water` | `sulfate_mg_l=-5` | `sulfate_mg_l`: allowed 0 to 50000 mg/L |
 | `wb.Water` | `calcium_mg_l=nan` | `calcium_mg_l`: allowed 0 to 50000 mg/L |
 | `wb.Water` | `alkalinity_mg_l_caco3=200, ph=3` (inconsistent pair) | `alkalinity_mg_l_caco3`: inconsistent with pH 3 |
+| `wb.Water` | `acidity_mg_l_caco3='high'` (text) | `acidity_mg_l_caco3`: a number between -50000 and 50000 |
+| `wb.Water` | `acidity_mg_l_caco3=nan` | `acidity_mg_l_caco3`: allowed -50000 to 50000 mg/L as CaCO3 |
 | `wb.Water` | `name=5` | `name`: a text label is required |
 | `wb.residual_curve` | `ph='seven'` (text) | `ph`: 0 to 14 |
 | `wb.residual_curve` | `ph=True` (not a pH) | `ph`: 0 to 14 |
@@ -127,6 +129,9 @@ rows tested.
 | `export_figure_pack` | `keep=` the scenario, in the way | `out_dir`: does not replace its own input |
 | `export_figure_pack` | a folder under a file (unwritable) | `out_dir`: can create and write to |
 | `export_figure_pack` | `progress=5` (not a function) | `progress`: a function progress(done, total), or None |
+| `wb.dose_curve` | `reactor='aerated'` (unknown) | `reactor`: allowed closed (no gas exchange) or open |
+| `wb.dose_for_ph` | `pco2_atm=2`, open reactor | `pco2_atm`: allowed greater than 0 and at most 1 atm |
+| `wb.dose_for_ph` | `pco2_atm=0.01`, closed reactor | `pco2_atm`: applies to reactor='open' only |
 
 A Water with an empty metal mapping (``metals_mg_l={}``: pure water, or major ions only) is valid, not refused.
 """
@@ -295,6 +300,20 @@ ROWS = [
         lambda tmp: wb.Water(alkalinity_mg_l_caco3=200.0, ph=3.0),
         "alkalinity_mg_l_caco3",
         "inconsistent with pH 3",
+    ),
+    (
+        "wb.Water",
+        "`acidity_mg_l_caco3='high'` (text)",
+        lambda tmp: wb.Water(acidity_mg_l_caco3="high", ph=3.0),
+        "acidity_mg_l_caco3",
+        "a number between -50000 and 50000",
+    ),
+    (
+        "wb.Water",
+        "`acidity_mg_l_caco3=nan`",
+        lambda tmp: wb.Water(acidity_mg_l_caco3=math.nan, ph=3.0),
+        "acidity_mg_l_caco3",
+        "allowed -50000 to 50000 mg/L as CaCO3",
     ),
     ("wb.Water", "`name=5`", lambda tmp: wb.Water(name=5), "name", "a text label is required"),
     # ------------------------------------------------------------------ residual curve
@@ -1039,6 +1058,26 @@ ROWS = [
         lambda tmp: export_figure_pack(_pack_scenario(), tmp / "pack", progress=5),
         "progress",
         "a function progress(done, total), or None",
+    (
+        "wb.dose_curve",
+        "`reactor='aerated'` (unknown)",
+        lambda tmp: wb.dose_curve(WATER, "lime", [100.0], reactor="aerated"),
+        "reactor",
+        "allowed closed (no gas exchange) or open",
+    ),
+    (
+        "wb.dose_for_ph",
+        "`pco2_atm=2`, open reactor",
+        lambda tmp: wb.dose_for_ph(WATER, "caustic", 9.0, reactor="open", pco2_atm=2.0),
+        "pco2_atm",
+        "allowed greater than 0 and at most 1 atm",
+    ),
+    (
+        "wb.dose_for_ph",
+        "`pco2_atm=0.01`, closed reactor",
+        lambda tmp: wb.dose_for_ph(WATER, "caustic", 9.0, pco2_atm=0.01),
+        "pco2_atm",
+        "applies to reactor='open' only",
     ),
 ]
 

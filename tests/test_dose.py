@@ -341,11 +341,16 @@ def test_sludge_closes_the_metal_mass_balance():
     )
 
 
-def test_curve_starts_at_the_measured_ph_and_is_vectorised():
+def test_curve_starts_where_the_supersaturated_influent_settles_and_is_vectorised():
     water = demo_water()
     doses = np.linspace(0.0, 800.0, 41)
     curve = dose.dose_curve(water, "lime", doses)
-    assert curve["pH"].iloc[0] == pytest.approx(water.ph, abs=1e-6)  # the closed charge balance
+    # the analysis, every metal dissolved, holds its measured pH (the closure); the demo influent is
+    # supersaturated with Cr(OH)3 and ferrihydrite, which form at zero dose and release their acidity
+    assert dose.dose_curve(water, "lime", [0.0], solids="none")["pH"].iloc[0] == pytest.approx(water.ph, abs=1e-6)
+    assert {"Cr(OH)3 (amorphous)", "Fe(OH)3 (ferrihydrite)"} <= set(curve.attrs["supersaturated_at_influent_ph"])
+    assert curve["pH"].iloc[0] == pytest.approx(curve.attrs["influent_ph_with_solids"], abs=1e-9)
+    assert curve["pH"].iloc[0] < water.ph - 0.05
     assert np.all(np.diff(curve["pH"].to_numpy()) > -1e-9)
     assert list(curve.columns[:2]) == ["dose_mg_l", "pH"] and "sludge_mg_l" in curve
     # order of doses does not matter; a single dose gives the same row as the curve
@@ -416,7 +421,8 @@ def test_sludge_table_columns_without_flow():
 def test_closure_holds_the_measured_ph_when_the_acids_chloride_precipitates_silver():
     """Found by the titration property test: a silver water at pH 9.9 whose unmeasured acid (entered as Cl-)
     precipitates AgCl, which carries none of the acid's charge until the silver is used up; the closure used to
-    stop after its plain steps with 'did not converge'. The curve must start at the measured pH."""
+    stop after its plain steps with 'did not converge'. The analysis, every metal dissolved, must hold its
+    measured pH; the curve starts where its supersaturated solids have formed."""
     water = wb.Water(
         metals_mg_l={"Ag": 1321.94, "Pb": 1000.0, "Ni": 7.17, "Cu": 0.356, "Zn": 1.0},
         calcium_mg_l=1.0,
@@ -424,7 +430,9 @@ def test_closure_holds_the_measured_ph_when_the_acids_chloride_precipitates_silv
         temperature_c=23.85,
     )
     curve = wb.dose_curve(water, "caustic", [0.0, 1.0, 2.6])
-    assert curve["pH"].iloc[0] == pytest.approx(9.9358, abs=1e-9)
+    bare = wb.dose_curve(water, "caustic", [0.0], solids="none")
+    assert bare["pH"].iloc[0] == pytest.approx(9.9358, abs=1e-9)
+    assert curve["pH"].iloc[0] == pytest.approx(curve.attrs["influent_ph_with_solids"], abs=1e-9)
     assert (np.diff(curve["pH"].to_numpy()) > 0).all()
 
 

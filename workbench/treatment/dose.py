@@ -7,15 +7,30 @@ A dose of reagent adds the ions of its active ingredient to the water's componen
 Na; magnesium hydroxide: Mg; soda ash: 2 Na + CO3; calcium chloride: Ca + 2 Cl). The hydroxide needs no component
 of its own: the pH follows from electroneutrality (the solver's charge-balance mode), and any solid that becomes
 supersaturated precipitates (metal hydroxides and carbonates, gypsum, calcite, fluorite, and the reagent itself
-as portlandite or brucite once the water is saturated with it). The reactor is closed: no CO2 is exchanged with
-the air.
+as portlandite or brucite once the water is saturated with it).
+
+The reactor is closed (``reactor="closed"``, the default: no CO2 is exchanged with the air) or open
+(``reactor="open"``: an aerated tank, the water at equilibrium with the air's CO2 at every dose, pCO2 from
+data/analysis/atmosphere.csv unless given; solved in one call per curve by a change of basis,
+:mod:`workbench.chemistry.open_system`). Every result says which.
 
 The raw water is made electroneutral first. An analysis never balances exactly, and the acidity that matters for
 dosing (free mineral acid from pickling, the acid that holds metals in solution) is usually not measured as an
-ion. The measured pH closes the balance: the strong acid (entered as Cl-) or strong base (entered as Na+) that
-makes the analysis hold its measured pH is found by fixed-pH solves and added to the totals, so that the
-titration curve starts at the measured pH and the dose follows from the real water. The same closure gives the
-water's acidity in mg/L as CaCO3 to the usual titration end points.
+ion. The metals of the analysis are what the laboratory found in the water: they count in full, dissolved, with
+their whole hydrolysis acidity, even where the equilibrium at the influent's pH says some would precipitate (a
+supersaturated influent is the normal case; the result names the solids and their saturation indices). The
+strong acid (entered as Cl-) or strong base (entered as Na+) not in the analysis is then sized in one of two ways:
+
+* from a measured acidity (``Water.acidity_mg_l_caco3``, hot peroxide, Standard Methods 2310 B / EPA 305.1):
+  the amount that makes the model's own hot peroxide titration of the water (CO2 boiled off, Fe(II) oxidised to
+  Fe(III), Mn counted at 2 eq/mol as in Kirby & Cravotta 2005, titrated to pH 8.3 with the solids that form)
+  equal the measured value;
+* otherwise from the measured pH: the amount that makes the analysis, every metal dissolved, hold its measured
+  pH (fixed-pH solves without solids), so that the titration starts from the real water.
+
+Either way the ion balance of the analysis is checked (:func:`workbench.treatment.influent.ion_balance`) and a
+gap beyond its acceptance rule is reported with the result. The same closure gives the water's acidity in mg/L as
+CaCO3 to the usual titration end points.
 
 Everything is vectorised over doses: one curve is one solver call, and the dose for a target pH is found by a
 bracketed search in which each round is one solver call over a few points per problem.
@@ -25,13 +40,14 @@ from __future__ import annotations
 
 import numbers
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass, fields
+from dataclasses import dataclass, field, fields
 
 import numpy as np
 import pandas as pd
 
-from workbench.chemistry import database, solver, tableau
+from workbench.chemistry import database, open_system, solver, tableau
 from workbench.errors import ConvergenceError, InputError, ModelRangeError
+from workbench.treatment import influent
 from workbench.treatment import reagents as rg
 from workbench.treatment.solubility import metal_mg_l, model_warnings
 from workbench.treatment.water import CACO3_EQ_G, METALS, Water
@@ -50,9 +66,96 @@ SEARCH_GRID = 40  # points of the first, geometric grid of a search
 SEARCH_SUBDIVIDE = 16  # points per bracket in each refinement round
 SEARCH_MAX_ROUNDS = 16
 SEARCH_PH_TOL = 2e-4  # a bracket is converged when its ends differ by less than this [pH]
+ACIDITY_PH_AGREEMENT = 0.5  # measured acidity and pH disagree when the acidity's pH differs by more [pH]
+MN_HOT_EQ_MOL = 2.0  # Mn dissolved at pH 8.3 in the hot peroxide titration: oxidised, 2 eq/mol [eq/mol]
 
 
 # ------------------------------------------------------------------------------------------------ setup
+@dataclass(frozen=True)
+class Influent:
+    """How the raw water's unmeasured strong acid or base was sized, and what its analysis says at its pH.
+
+    Attributes
+    ----------
+    basis : {"measured pH", "measured acidity"}
+        What sized the unmeasured acid or base.
+    closure_eq_l : float
+        Strong base (+, entered as Na+) or acid (-, as Cl-) added to the analysis. [eq/L]
+    ph : float
+        Measured pH. [-]
+    ph_as_analysed : float
+        pH the analysed water holds with the closure, every metal dissolved (the measured pH when the pH sized
+        the closure). [-]
+    measured_acidity_mg_l_caco3 : float or None
+        The hot peroxide acidity entered. [mg/L as CaCO3]
+    supersaturated : dict
+        Solid -> saturation index (log10 IAP/Ksp > 0) at the measured pH with every metal dissolved, largest
+        first: the solids the influent as analysed is supersaturated with. [log10 units]
+    ph_with_solids : float
+        pH of the influent without reagent once those solids have formed (closed vessel); the measured pH when
+        it is supersaturated with none. [-]
+    ion_balance : IonBalance
+        Cations against anions of the analysis.
+    """
+
+    basis: str
+    closure_eq_l: float
+    ph: float
+    ph_as_analysed: float
+    measured_acidity_mg_l_caco3: float | None
+    supersaturated: dict
+    ph_with_solids: float
+    ion_balance: influent.IonBalance
+
+    def warnings(self) -> list[str]:
+        """What the engineer should know about the influent: the ion balance when it does not close, the
+        supersaturated solids, and how the measured acidity and pH agree."""
+        out = []
+        closure = (
+            f"{self.closure_eq_l * 1000:.3g} meq/L of strong base (entered as Na+)"
+            if self.closure_eq_l >= 0
+            else f"{-self.closure_eq_l * 1000:.3g} meq/L of strong acid (entered as Cl-)"
+        )
+        if not self.ion_balance.acceptable:
+            if self.basis == "measured pH":
+                fill = (
+                    f"To hold its measured pH {self.ph:g}, the model adds {closure}, which fills the gap: check "
+                    "the analysis (a missing major ion, e.g. Ca, Mg, Na, K, sulfate, chloride) or enter the "
+                    "measured acidity."
+                )
+            else:
+                fill = f"The measured acidity sizes the unmeasured acid or base: {closure}."
+            out.append(f"The analysis does not balance: {self.ion_balance.message()}. {fill}")
+        if self.supersaturated:
+            listed = "; ".join(f"{name}, SI {si:+.2f}" for name, si in self.supersaturated.items())
+            out.append(
+                f"The influent as analysed is supersaturated at its pH {self.ph:g} with {listed} (SI: log10 "
+                "of ion activity product over solubility product). Its metals are counted as the analysis gives "
+                "them, dissolved, with their full hydrolysis acidity; in the reactor these solids form, and "
+                f"without reagent the pH would fall to {self.ph_with_solids:.2f} (where a titration curve "
+                "starts). If part of a metal was already suspended solid when sampled, its acidity is spent and "
+                "the dose is overstated: a measured hot peroxide acidity settles it."
+            )
+        if self.basis == "measured acidity" and abs(self.ph_as_analysed - self.ph) > ACIDITY_PH_AGREEMENT:
+            out.append(
+                f"The measured acidity ({self.measured_acidity_mg_l_caco3:g} mg/L as CaCO3) and pH ({self.ph:g}) "
+                f"disagree: with the acidity, the analysed water would hold pH {self.ph_as_analysed:.2f}. The dose "
+                "follows the acidity; check both measurements."
+            )
+        return out
+
+    def attrs(self) -> dict:
+        """The influent's facts as plain values for a result's ``attrs``."""
+        return {
+            "acidity_basis": self.basis,
+            "unmeasured_strong_acid_eq_l": -self.closure_eq_l,
+            "supersaturated_at_influent_ph": dict(self.supersaturated),
+            "influent_ph_with_solids": self.ph_with_solids,
+            "ion_balance_percent": self.ion_balance.difference_percent,
+            "ion_balance_meq_l": self.ion_balance.difference_meq_l,
+        }
+
+
 @dataclass(frozen=True)
 class _Setup:
     """A water made electroneutral, a reagent and the tableau that holds them both (internal)."""
@@ -64,8 +167,15 @@ class _Setup:
     base: np.ndarray  # water totals including the closure [mol/L]
     unit: np.ndarray  # component totals added per mol of active ingredient
     cacl2_unit: np.ndarray  # component totals added per mol of CaCl2
-    closure_eq_l: float  # strong base (+) or acid (-) that closes the raw water's charge balance [eq/L]
+    influent: Influent
     activity: str
+    reactor: str = "closed"
+    pco2_atm: float | None = None  # open reactor: CO2 partial pressure [atm]
+
+    @property
+    def closure_eq_l(self) -> float:
+        """Strong base (+) or acid (-) that closes the raw water's balance. [eq/L]"""
+        return self.influent.closure_eq_l
 
     def totals(self, active_mol_l: np.ndarray, cacl2_mol_l: np.ndarray) -> np.ndarray:
         return (
@@ -80,16 +190,39 @@ class _Setup:
         active = np.atleast_1d(np.asarray(active_mol_l, float))
         cacl2 = np.broadcast_to(np.asarray(cacl2_mol_l, float), active.shape)
         order = np.lexsort((active, cacl2))
-        eq = solver.solve(
-            self.tab,
-            self.totals(active[order], cacl2[order]),
-            None,
-            activity=self.activity,
-            ph_guess=self.water.ph,
-        )
+        totals = self.totals(active[order], cacl2[order])
+        if self.reactor == "open":
+            eq = open_system.solve(
+                self.tab,
+                totals,
+                None,
+                log_pco2=float(np.log10(self.pco2_atm)),
+                log_kh=open_system.henry_log_k(self.water.temperature_c),
+                activity=self.activity,
+                ph_guess=self.water.ph,
+            )
+        else:
+            eq = solver.solve(self.tab, totals, None, activity=self.activity, ph_guess=self.water.ph)
         back = np.empty_like(order)
         back[order] = np.arange(order.size)
         return _take(eq, back)
+
+    def reactor_attrs(self) -> dict:
+        """Which reactor a result used, for its ``attrs``."""
+        return {"reactor": self.reactor, "pco2_atm": self.pco2_atm}
+
+    def notes(self) -> list[str]:
+        """The influent's warnings and, for an open reactor, what equilibrium with the air means."""
+        out = self.influent.warnings()
+        if self.reactor == "open":
+            out.append(
+                f"Open reactor: the water is taken at equilibrium with CO2 at {self.pco2_atm:.4g} atm "
+                f"(log pCO2 {np.log10(self.pco2_atm):.2f}) at every dose. Below about pH 8 aeration strips CO2 "
+                "and saves reagent; above it the water takes up CO2 that the reagent must neutralise (lime makes "
+                "calcite, which caps its pH). Equilibrium with the air is the limit of complete gas exchange: real "
+                "tanks exchange CO2 slowly, so the plant's dose lies between the closed and the open results."
+            )
+        return out
 
 
 def _take(eq: solver.Equilibrium, idx: np.ndarray) -> solver.Equilibrium:
@@ -123,16 +256,28 @@ def _check_choices(solids, activity) -> None:
 
 
 def _setup(
-    water, reagent, purity, *, solids="fresh", activity="davies", with_calcium_chloride=False
+    water,
+    reagent,
+    purity,
+    *,
+    solids="fresh",
+    activity="davies",
+    with_calcium_chloride=False,
+    reactor="closed",
+    pco2_atm=None,
 ) -> _Setup:
     water = _check_water(water)
     reagent = rg.get(reagent)
     purity = rg.check_purity(reagent, purity)
     _check_choices(solids, activity)
+    reactor = influent.check_reactor(reactor)
+    pco2 = influent.check_pco2(pco2_atm, reactor)
     totals = water.totals()
     comps = set(totals) | set(reagent.adds) | {"Na+", "Cl-"}
     if with_calcium_chloride:
         comps |= set(rg.CALCIUM_CHLORIDE_ADDS)
+    if reactor == "open":
+        comps.add(open_system.CARBONATE)  # the air brings carbonate
     tab = tableau.build(tuple(comps), water.temperature_c, solids)
     raw = np.zeros(len(tab.components))
     for comp, value in totals.items():
@@ -144,8 +289,8 @@ def _setup(
     if with_calcium_chloride:
         for comp, n in rg.CALCIUM_CHLORIDE_ADDS.items():
             cacl2[tab.component(comp)] = n
-    base, closure = _close_charge_balance(tab, raw, water.ph, activity)
-    return _Setup(water, reagent, purity, tab, base, unit, cacl2, closure, activity)
+    base, inf = _close_influent(water, tab, raw, solids, activity)
+    return _Setup(water, reagent, purity, tab, base, unit, cacl2, inf, activity, reactor, pco2)
 
 
 def _with_closure(tab, raw: np.ndarray, net_base_eq_l: float) -> np.ndarray:
@@ -157,29 +302,107 @@ def _with_closure(tab, raw: np.ndarray, net_base_eq_l: float) -> np.ndarray:
     return out
 
 
-def _close_charge_balance(tab, raw: np.ndarray, ph: float, activity: str) -> tuple[np.ndarray, float]:
-    """Strong base (+, as Na+) or acid (-, as Cl-) that makes the analysis hold its measured pH. [eq/L]
+def _close_influent(
+    water: Water, tab, raw: np.ndarray, solids: str, activity: str
+) -> tuple[np.ndarray, Influent]:
+    """The analysis made electroneutral (totals with the closure) and what was found on the way.
 
-    The strong base a fixed-pH solve needs is the charge-balance residual of the analysis. Adding it as Na+ or
-    Cl- shifts the ion pairs those ions form a little, so the residual is taken again until it vanishes. Where
-    that is slow (the acid's chloride precipitating silver as AgCl carries none of the acid's charge until the
-    silver is used up), the root is bracketed and found by Brent's method: the base still missing never rises
-    as base is added."""
+    The metals count as analysed: every closure solve is made without solids (a tableau of the same components
+    with ``solids="none"``). With a measured acidity the closure makes :func:`_hot_acidity_eq_l` equal it;
+    otherwise it makes the water hold its measured pH."""
+    bare = tableau.build(tab.components, water.temperature_c, "none")
+    ph = np.array([water.ph])
+    measured = water.acidity_mg_l_caco3
+    if measured is None:
 
-    def missing(net: float) -> float:
-        eq = solver.solve(tab, _with_closure(tab, raw, net), np.array([ph]), activity=activity)
-        return float(eq.strong_base[0])
+        def missing(net: float) -> float:  # strong base still needed to hold the measured pH
+            return float(
+                solver.solve(bare, _with_closure(bare, raw, net), ph, activity=activity).strong_base[0]
+            )
 
+        net = _find_closure(missing, f"to hold the measured pH {water.ph:g}")
+        ph_as_analysed = float(water.ph)
+    else:
+        target = measured / 1000.0 / CACO3_EQ_G
+
+        def missing(net: float) -> float:  # acidity the model still finds beyond the measured one
+            return _hot_acidity_eq_l(tab, _with_closure(tab, raw, net), solids, activity) - target
+
+        net = _find_closure(missing, f"to the measured acidity {measured:g} mg/L as CaCO3")
+        ph_as_analysed = float(
+            solver.solve(bare, _with_closure(bare, raw, net), None, activity=activity, ph_guess=water.ph).ph[
+                0
+            ]
+        )
+    base = _with_closure(tab, raw, net)
+    supersaturated = _supersaturated(tab, solver.solve(bare, base, ph, activity=activity))
+    ph_with_solids = float(water.ph)
+    if supersaturated:
+        ph_with_solids = float(solver.solve(tab, base, None, activity=activity, ph_guess=water.ph).ph[0])
+    return base, Influent(
+        basis="measured pH" if measured is None else "measured acidity",
+        closure_eq_l=net,
+        ph=float(water.ph),
+        ph_as_analysed=ph_as_analysed,
+        measured_acidity_mg_l_caco3=measured,
+        supersaturated=supersaturated,
+        ph_with_solids=ph_with_solids,
+        ion_balance=influent.ion_balance(water),
+    )
+
+
+def _supersaturated(tab, eq) -> dict:
+    """Solids of ``tab`` with a positive saturation index in a solution solved without solids (same
+    components), largest first. [log10 units]"""
+    if not tab.solids:
+        return {}
+    rows = [eq.tableau.species.index(c) for c in eq.tableau.components]
+    log_activity = eq.log_free[0] + eq.log_gamma[0, rows]
+    si = tab.log_ks + tab.b @ log_activity
+    order = np.argsort(-si)
+    return {tab.solids[k]: float(si[k]) for k in order if si[k] > 0}
+
+
+def _hot_acidity_eq_l(tab, totals: np.ndarray, solids: str, activity: str) -> float:
+    """The model's hot peroxide acidity of a water (Standard Methods 2310 B, EPA 305.1) [eq/L]: its CO2 boiled
+    off, its Fe(II) oxidised to Fe(III) by the peroxide, then titrated with strong base to pH 8.3 with the solids
+    that form; Mn still dissolved at pH 8.3 counts 2 eq/mol (oxidised to MnO2 by the peroxide, as the calculated
+    acidity of Kirby & Cravotta 2005 counts it). A net acidity: negative for a net alkaline water.
+
+    Removing the carbonate component in charge terms removes it as neutral H2CO3 (CO2 + H2O), which is what
+    boiling an acidified sample does; moving Fe2+ to Fe3+ takes up one H+ per Fe, as the oxidation does."""
+    names = dict(zip(tab.components, totals, strict=True))
+    names.pop(open_system.CARBONATE, None)
+    if "Fe^2+" in names:
+        names["Fe^3+"] = names.get("Fe^3+", 0.0) + names.pop("Fe^2+")
+    hot = tableau.build(tuple(names), tab.temperature_c, solids)
+    row = np.zeros(len(hot.components))
+    for comp, value in names.items():
+        row[hot.component(comp)] = value
+    eq = solver.solve(hot, row, np.array([TOTAL_ACIDITY_PH]), activity=activity)
+    acidity = float(eq.strong_base[0])
+    if "Mn^2+" in hot.components:
+        acidity += MN_HOT_EQ_MOL * float(eq.dissolved()[0, hot.component("Mn^2+")])
+    return acidity
+
+
+def _find_closure(missing, what: str) -> float:
+    """Strong base (+, as Na+) or acid (-, as Cl-) at which ``missing`` vanishes. [eq/L]
+
+    ``missing(net)`` is the strong base still missing with ``net`` added: to hold the measured pH, or to bring
+    the model's acidity down to the measured one. Adding base as Na+ or acid as Cl- shifts the ion pairs those
+    ions form a little, so the residual is taken again until it vanishes. Where that is slow, the root is
+    bracketed and found by Brent's method: the base still missing never rises as base is added."""
     net, residual = 0.0, missing(0.0)
     tried = [(net, residual)]
     for _ in range(CLOSURE_MAX_ITER):
         if abs(residual) <= CLOSURE_TOL_EQ_L:
-            return _with_closure(tab, raw, net), net
+            return net
         net += residual
         residual = missing(net)
         tried.append((net, residual))
     if abs(residual) <= CLOSURE_TOL_EQ_L:
-        return _with_closure(tab, raw, net), net
+        return net
     below = max((p for p in tried if p[1] > 0), default=None)  # base still missing: the root lies above
     above = min((p for p in tried if p[1] < 0), default=None)
     step = max(abs(residual), CLOSURE_TOL_EQ_L)
@@ -201,9 +424,9 @@ def _close_charge_balance(tab, raw: np.ndarray, ph: float, activity: str) -> tup
         )
         residual = missing(net)
         if abs(residual) <= CLOSURE_TOL_EQ_L:
-            return _with_closure(tab, raw, net), net
+            return net
     raise ConvergenceError(
-        f"charge-balance closure of the raw water did not converge (residual {residual:.3g} eq/L at pH {ph:g})"
+        f"charge-balance closure of the raw water {what} did not converge (residual {residual:.3g} eq/L)"
     )
 
 
@@ -211,8 +434,9 @@ SLOW_SOLIDS = ("CaCO3", "CaSO4.2H2O")  # calcite and gypsum: they precipitate sl
 
 
 def _warnings(setup: _Setup, eq) -> list[str]:
-    """The core's model warnings, and a note when calcite or gypsum carry part of the result."""
-    out = model_warnings(setup.water, setup.tab, eq)
+    """The influent's and the reactor's notes, the core's model warnings, and a note when calcite or gypsum
+    carry part of the result."""
+    out = setup.notes() + model_warnings(setup.water, setup.tab, eq)
     slow = [
         setup.tab.solids[k]
         for k in range(len(setup.tab.solids))
@@ -232,23 +456,38 @@ def _warnings(setup: _Setup, eq) -> list[str]:
 # ------------------------------------------------------------------------------------------------ acidity
 @dataclass(frozen=True)
 class WaterAcidity:
-    """The raw water's acidity, from its analysis and measured pH.
+    """The raw water's acidity, from its analysis and its measured pH or measured acidity.
 
     Attributes
     ----------
     ph : float
         Measured pH. [-]
     unmeasured_strong_acid_eq_l : float
-        Strong acid (positive) or base (negative) not in the analysis that makes it hold its measured pH: the
-        charge balance closed. [eq/L]
+        Strong acid (positive) or base (negative) not in the analysis, with every metal counted dissolved: the
+        amount that makes the analysis hold its measured pH, or match its measured acidity (``basis``). [eq/L]
     unmeasured_strong_acid_mg_l_caco3 : float
         The same as CaCO3. [mg/L as CaCO3]
     mineral_acidity_mg_l_caco3 : float
         Strong base needed to bring the water to pH 4.5 (negative: the water is above pH 4.5 and the value is the
         acid it would take to bring it down). [mg/L as CaCO3]
     total_acidity_mg_l_caco3 : float
-        Strong base needed to bring the water to pH 8.3, including what the metals that precipitate on the way
-        consume (negative as above). [mg/L as CaCO3]
+        Strong base needed to bring the water to pH 8.3 in a closed vessel (its CO2 kept), including what the
+        metals that precipitate on the way consume (negative as above). [mg/L as CaCO3]
+    hot_acidity_mg_l_caco3 : float
+        The model's hot peroxide acidity (CO2 boiled off, Fe(II) oxidised, Mn at 2 eq/mol, titrated to pH 8.3): a
+        net acidity, what the laboratory's Standard Methods 2310 B / EPA 305.1 titration would report; equal to
+        the measured acidity when one is given. [mg/L as CaCO3]
+    basis : {"measured pH", "measured acidity"}
+        What sized the unmeasured acid or base.
+    ph_as_analysed : float
+        pH the analysed water holds with the unmeasured acid, every metal dissolved (the measured pH when the pH
+        is the basis). [-]
+    supersaturated : dict
+        Solid -> saturation index at the measured pH with every metal dissolved (positive only). [log10 units]
+    ion_balance : IonBalance
+        Cations against anions of the analysis (:func:`workbench.treatment.influent.ion_balance`).
+    warnings : list of str
+        The ion balance when it does not close, the supersaturated solids, disagreement of acidity and pH.
     """
 
     ph: float
@@ -256,15 +495,23 @@ class WaterAcidity:
     unmeasured_strong_acid_mg_l_caco3: float
     mineral_acidity_mg_l_caco3: float
     total_acidity_mg_l_caco3: float
+    hot_acidity_mg_l_caco3: float = float("nan")
+    basis: str = "measured pH"
+    ph_as_analysed: float = float("nan")
+    supersaturated: dict = field(default_factory=dict)
+    ion_balance: influent.IonBalance | None = None
+    warnings: list = field(default_factory=list)
 
 
 def raw_water_acidity(water: Water, *, solids: str = "fresh", activity: str = "davies") -> WaterAcidity:
-    """The raw water's unmeasured strong acid and its acidity to pH 4.5 and 8.3.
+    """The raw water's unmeasured strong acid, its acidity to pH 4.5 and 8.3, its hot peroxide acidity, its ion
+    balance and the solids it is supersaturated with.
 
     Parameters
     ----------
     water : Water
-        With a measured pH.
+        With a measured pH (and, optionally, a measured hot peroxide acidity, which then sizes the unmeasured
+        acid).
     solids : {"fresh", "aged", "none"}
         Solids that may form (metal hydroxides precipitating on the way to an end point consume base).
     activity : {"davies", "ideal"}
@@ -276,7 +523,8 @@ def raw_water_acidity(water: Water, *, solids: str = "fresh", activity: str = "d
     Notes
     -----
     Acidity to an end point is the strong base a fixed-pH solve needs to hold the closed water at that pH,
-    converted with 50.04 g CaCO3 per equivalent.
+    converted with 50.04 g CaCO3 per equivalent. How the unmeasured acid is sized, and the hot peroxide acidity,
+    are described in the module docstring.
     """
     water = _check_water(water)
     _check_choices(solids, activity)
@@ -285,15 +533,22 @@ def raw_water_acidity(water: Water, *, solids: str = "fresh", activity: str = "d
     raw = np.zeros(len(tab.components))
     for comp, value in totals.items():
         raw[tab.component(comp)] = value
-    base, closure = _close_charge_balance(tab, raw, water.ph, activity)
+    base, inf = _close_influent(water, tab, raw, solids, activity)
     eq = solver.solve(tab, base, np.array([MINERAL_ACIDITY_PH, TOTAL_ACIDITY_PH]), activity=activity)
     to_caco3 = CACO3_EQ_G * 1000.0
+    closure = inf.closure_eq_l
     return WaterAcidity(
         ph=float(water.ph),
         unmeasured_strong_acid_eq_l=-closure,
         unmeasured_strong_acid_mg_l_caco3=-closure * to_caco3,
         mineral_acidity_mg_l_caco3=float(eq.strong_base[0]) * to_caco3,
         total_acidity_mg_l_caco3=float(eq.strong_base[1]) * to_caco3,
+        hot_acidity_mg_l_caco3=_hot_acidity_eq_l(tab, base, solids, activity) * to_caco3,
+        basis=inf.basis,
+        ph_as_analysed=inf.ph_as_analysed,
+        supersaturated=dict(inf.supersaturated),
+        ion_balance=inf.ion_balance,
+        warnings=inf.warnings(),
     )
 
 
@@ -328,7 +583,8 @@ def _curve_frame(setup: _Setup, doses: np.ndarray, eq, cacl2_mg_l) -> pd.DataFra
         purity=setup.purity,
         temperature_c=water.temperature_c,
         extra_calcium_chloride_mg_l=float(np.max(cacl2_mg_l)),
-        unmeasured_strong_acid_eq_l=-setup.closure_eq_l,
+        **setup.reactor_attrs(),
+        **setup.influent.attrs(),
         units="dose: mg/L of product as sold; metals, fluoride, calcium: dissolved mg/L; sludge: dry mg/L",
         warnings=_warnings(setup, eq),
     )
@@ -344,6 +600,8 @@ def dose_curve(
     extra_calcium_chloride_mg_l: float = 0.0,
     solids: str = "fresh",
     activity: str = "davies",
+    reactor: str = "closed",
+    pco2_atm: float | None = None,
 ) -> pd.DataFrame:
     """Titration curve: pH, dissolved metals, fluoride, calcium and dry sludge against reagent dose.
 
@@ -362,6 +620,12 @@ def dose_curve(
     solids : {"fresh", "aged", "none"}
         Solids that may form.
     activity : {"davies", "ideal"}
+    reactor : {"closed", "open"}
+        ``"closed"``: no gas exchange; ``"open"``: an aerated reactor, the water at equilibrium with CO2 at
+        ``pco2_atm`` at every dose (module docstring).
+    pco2_atm : float, optional
+        CO2 partial pressure of an open reactor, (0, 1]; default the air's (data/analysis/atmosphere.csv: NOAA GML
+        2024 global mean, 422.80 µmol/mol, at 1 atm of dry air). [atm]
 
     Returns
     -------
@@ -369,20 +633,34 @@ def dose_curve(
         One row per dose, in the order given. Columns ``dose_mg_l``, ``pH``, one column per metal of the water
         (dissolved, mg/L), ``fluoride_mg_l`` (dissolved F, when the water has fluoride), ``calcium_mg_l``
         (dissolved Ca, when calcium is present), ``sludge_mg_l`` (dry solids formed plus the reagent's inerts).
-        ``attrs`` holds the reagent, purity, temperature, the unmeasured strong acid and ``warnings``.
+        ``attrs`` holds the reagent, purity, temperature, ``reactor`` and ``pco2_atm`` (None when closed), the
+        unmeasured strong acid and what sized it (``acidity_basis``), the solids the influent is supersaturated
+        with at its pH (``supersaturated_at_influent_ph``), its ion balance (``ion_balance_percent``,
+        ``ion_balance_meq_l``) and ``warnings``.
     """
     setup, doses, cacl2, eq = _at_doses(
-        water, reagent, dose_mg_l, purity, extra_calcium_chloride_mg_l, solids, activity
+        water, reagent, dose_mg_l, purity, extra_calcium_chloride_mg_l, solids, activity, reactor, pco2_atm
     )
     return _curve_frame(setup, doses, eq, cacl2)
 
 
-def _at_doses(water, reagent, dose_mg_l, purity, extra_calcium_chloride_mg_l, solids, activity):
+def _at_doses(
+    water, reagent, dose_mg_l, purity, extra_calcium_chloride_mg_l, solids, activity, reactor, pco2_atm
+):
     doses = rg.check_doses(dose_mg_l)
     cacl2 = rg.check_amount(
         extra_calcium_chloride_mg_l, "extra_calcium_chloride_mg_l", MAX_CALCIUM_CHLORIDE_MG_L, "mg/L of CaCl2"
     )
-    setup = _setup(water, reagent, purity, solids=solids, activity=activity, with_calcium_chloride=cacl2 > 0)
+    setup = _setup(
+        water,
+        reagent,
+        purity,
+        solids=solids,
+        activity=activity,
+        with_calcium_chloride=cacl2 > 0,
+        reactor=reactor,
+        pco2_atm=pco2_atm,
+    )
     eq = setup.solve(setup.reagent.active_mol_l(doses, setup.purity), _cacl2_mol_l(cacl2))
     return setup, doses, cacl2, eq
 
@@ -396,11 +674,13 @@ def dose_equilibrium(
     extra_calcium_chloride_mg_l: float = 0.0,
     solids: str = "fresh",
     activity: str = "davies",
+    reactor: str = "closed",
+    pco2_atm: float | None = None,
 ):
     """The equilibria behind :func:`dose_curve`: ``(tableau, Equilibrium)`` at each dose, for speciation
     detail (activities, saturation indices). Arguments as for :func:`dose_curve`. Internal building block."""
     setup, _, _, eq = _at_doses(
-        water, reagent, dose_mg_l, purity, extra_calcium_chloride_mg_l, solids, activity
+        water, reagent, dose_mg_l, purity, extra_calcium_chloride_mg_l, solids, activity, reactor, pco2_atm
     )
     return setup.tab, eq
 
@@ -408,11 +688,14 @@ def dose_equilibrium(
 # ------------------------------------------------------------------------------------------------ ceiling
 def _ceiling_solids(setup: _Setup) -> np.ndarray:
     """Solids made only of the reagent's own ions and hydroxide (portlandite for lime, brucite for
-    magnesium hydroxide): once one is present, more reagent only adds solid and the pH stops rising."""
+    magnesium hydroxide): once one is present, more reagent only adds solid and the pH stops rising. In an open
+    reactor the air supplies carbonate, so a carbonate of the reagent's ion (calcite for lime) caps it too."""
     tab = setup.tab
     own = np.zeros(len(tab.components), bool)
     own[0] = True
     own[[tab.component(c) for c in setup.reagent.adds]] = True
+    if setup.reactor == "open":
+        own[tab.component(open_system.CARBONATE)] = True
     uses = np.abs(tab.b) > 0
     return np.flatnonzero((uses & ~own[None, :]).sum(axis=1) == 0)
 
@@ -480,6 +763,8 @@ def reagent_ceiling_ph(
     extra_calcium_chloride_mg_l: float = 0.0,
     solids: str = "fresh",
     activity: str = "davies",
+    reactor: str = "closed",
+    pco2_atm: float | None = None,
 ) -> float | None:
     """The highest pH the reagent can reach in this water: the pH once the water is saturated with it.
 
@@ -489,7 +774,7 @@ def reagent_ceiling_ph(
 
     Parameters
     ----------
-    water, reagent, purity, extra_calcium_chloride_mg_l, solids, activity
+    water, reagent, purity, extra_calcium_chloride_mg_l, solids, activity, reactor, pco2_atm
         As for :func:`dose_curve`. The purity does not change the ceiling.
 
     Returns
@@ -501,12 +786,40 @@ def reagent_ceiling_ph(
     cacl2 = rg.check_amount(
         extra_calcium_chloride_mg_l, "extra_calcium_chloride_mg_l", MAX_CALCIUM_CHLORIDE_MG_L, "mg/L of CaCl2"
     )
-    setup = _setup(water, reagent, purity, solids=solids, activity=activity, with_calcium_chloride=cacl2 > 0)
+    setup = _setup(
+        water,
+        reagent,
+        purity,
+        solids=solids,
+        activity=activity,
+        with_calcium_chloride=cacl2 > 0,
+        reactor=reactor,
+        pco2_atm=pco2_atm,
+    )
     scan = _scan(setup, _cacl2_mol_l(np.array([cacl2])))
     return None if scan.solid is None else float(scan.ceiling_ph[0])
 
 
 # ------------------------------------------------------------------------------------------------ dose for pH
+class DoseResult(float):
+    """A dose [mg/L of product as sold] that says how it was found: its attributes are the reagent, the target
+    pH, the purity, ``reactor`` and ``pco2_atm``, ``acidity_basis``, ``unmeasured_strong_acid_eq_l``,
+    ``supersaturated_at_influent_ph``, ``ion_balance_percent``, ``ion_balance_meq_l`` and ``warnings``. It
+    behaves as a float everywhere else."""
+
+    def __new__(cls, value: float, **info):
+        obj = super().__new__(cls, value)
+        obj.__dict__.update(info)
+        return obj
+
+    def __reduce__(self):
+        return (_dose_result, (float(self), dict(self.__dict__)))
+
+
+def _dose_result(value: float, info: dict) -> DoseResult:
+    return DoseResult(value, **info)
+
+
 def _check_target(target_ph) -> float:
     if isinstance(target_ph, bool) or not isinstance(target_ph, numbers.Real) or not np.isfinite(target_ph):
         raise InputError("target_ph", target_ph, "a pH between 0 and 14 is required")
@@ -529,8 +842,10 @@ def _roots(setup: _Setup, target: float, cacl2_mol_l: np.ndarray) -> tuple[np.nd
             "target_ph",
             target,
             f"{reagent.name} cannot raise this water above pH {top:.2f}, its ceiling here (the water is "
-            f"saturated with {scan.solid} at {setup.water.temperature_c:g} °C); allowed up to {top:.2f}, or "
-            "choose a reagent without a ceiling (caustic)",
+            f"saturated with {scan.solid} at {setup.water.temperature_c:g} °C"
+            + (", the open reactor's air supplying the carbonate" if setup.reactor == "open" else "")
+            + f"); allowed up to {top:.2f}, or choose a reagent without a ceiling (caustic)"
+            + (" or a closed reactor" if setup.reactor == "open" else ""),
         )
     if scan.solid is None and (ph[:, -1] < target).any():
         wide = np.geomspace(SEARCH_MAX_ACTIVE_MOL_L, SEARCH_WIDE_ACTIVE_MOL_L, 6)[1:]
@@ -603,6 +918,8 @@ def dose_for_ph(
     extra_calcium_chloride_mg_l: float = 0.0,
     solids: str = "fresh",
     activity: str = "davies",
+    reactor: str = "closed",
+    pco2_atm: float | None = None,
 ) -> float:
     """Dose of reagent that brings the water to a target pH.
 
@@ -613,13 +930,15 @@ def dose_for_ph(
     reagent : {"lime", "quicklime", "caustic", "magnesium_hydroxide", "soda_ash"}
     target_ph : float
         pH to reach, above the water's own pH and at most the reagent's ceiling in this water. [-]
-    purity, extra_calcium_chloride_mg_l, solids, activity
+    purity, extra_calcium_chloride_mg_l, solids, activity, reactor, pco2_atm
         As for :func:`dose_curve`.
 
     Returns
     -------
-    float
-        Dose of product as sold (purity applied). [mg/L]
+    DoseResult
+        Dose of product as sold (purity applied), a float [mg/L] that also carries ``reactor``, ``pco2_atm``,
+        ``acidity_basis``, ``supersaturated_at_influent_ph``, the ion balance and ``warnings`` (the influent's and
+        the reactor's notes) as attributes.
 
     Raises
     ------
@@ -641,9 +960,26 @@ def dose_for_ph(
     cacl2 = rg.check_amount(
         extra_calcium_chloride_mg_l, "extra_calcium_chloride_mg_l", MAX_CALCIUM_CHLORIDE_MG_L, "mg/L of CaCl2"
     )
-    setup = _setup(water, reagent, purity, solids=solids, activity=activity, with_calcium_chloride=cacl2 > 0)
+    setup = _setup(
+        water,
+        reagent,
+        purity,
+        solids=solids,
+        activity=activity,
+        with_calcium_chloride=cacl2 > 0,
+        reactor=reactor,
+        pco2_atm=pco2_atm,
+    )
     active, _ = _roots(setup, target, _cacl2_mol_l(np.array([cacl2])))
-    return float(setup.reagent.dose_mg_l(active[0], setup.purity))
+    return DoseResult(
+        float(setup.reagent.dose_mg_l(active[0], setup.purity)),
+        reagent=setup.reagent.key,
+        target_ph=target,
+        purity=setup.purity,
+        **setup.reactor_attrs(),
+        **setup.influent.attrs(),
+        warnings=setup.notes(),
+    )
 
 
 # ------------------------------------------------------------------------------------------------ sludge
@@ -695,12 +1031,14 @@ def sludge_at_dose(
     extra_calcium_chloride_mg_l: float = 0.0,
     solids: str = "fresh",
     activity: str = "davies",
+    reactor: str = "closed",
+    pco2_atm: float | None = None,
 ) -> pd.DataFrame:
     """Each solid formed at one dose, dry, per litre and per day, and the wet volume.
 
     Parameters
     ----------
-    water, reagent, purity, extra_calcium_chloride_mg_l, solids, activity
+    water, reagent, purity, extra_calcium_chloride_mg_l, solids, activity, reactor, pco2_atm
         As for :func:`dose_curve`.
     dose_mg_l : float
         Dose of product as sold. [mg/L]
@@ -731,7 +1069,16 @@ def sludge_at_dose(
     cacl2 = rg.check_amount(
         extra_calcium_chloride_mg_l, "extra_calcium_chloride_mg_l", MAX_CALCIUM_CHLORIDE_MG_L, "mg/L of CaCl2"
     )
-    setup = _setup(water, reagent, purity, solids=solids, activity=activity, with_calcium_chloride=cacl2 > 0)
+    setup = _setup(
+        water,
+        reagent,
+        purity,
+        solids=solids,
+        activity=activity,
+        with_calcium_chloride=cacl2 > 0,
+        reactor=reactor,
+        pco2_atm=pco2_atm,
+    )
     eq = setup.solve(setup.reagent.active_mol_l(doses, setup.purity), _cacl2_mol_l(cacl2))
     return _sludge_frame(setup, float(doses[0]), eq, flow, fraction, density)
 
@@ -763,6 +1110,8 @@ def _sludge_frame(setup: _Setup, dose: float, eq, flow, fraction, density) -> pd
         flow_m3_d=flow,
         solids_fraction=fraction,
         wet_density_kg_m3=density,
+        **setup.reactor_attrs(),
+        **setup.influent.attrs(),
         warnings=_warnings(setup, eq),
     )
     return df
@@ -778,6 +1127,8 @@ def fluoride_at_setpoint(
     purity: float | None = None,
     solids: str = "fresh",
     activity: str = "davies",
+    reactor: str = "closed",
+    pco2_atm: float | None = None,
 ) -> pd.DataFrame:
     """Residual fluoride at a pH setpoint, with and without extra calcium (calcium chloride).
 
@@ -789,7 +1140,7 @@ def fluoride_at_setpoint(
     ----------
     water : Water
         With fluoride and a measured pH.
-    reagent, purity, solids, activity
+    reagent, purity, solids, activity, reactor, pco2_atm
         As for :func:`dose_curve`.
     target_ph : float
         The setpoint. [-]
@@ -812,7 +1163,16 @@ def fluoride_at_setpoint(
         raise InputError(
             "calcium_chloride_mg_l", calcium_chloride_mg_l, f"allowed 0 to {MAX_CALCIUM_CHLORIDE_MG_L:g} mg/L"
         )
-    setup = _setup(water, reagent, purity, solids=solids, activity=activity, with_calcium_chloride=True)
+    setup = _setup(
+        water,
+        reagent,
+        purity,
+        solids=solids,
+        activity=activity,
+        with_calcium_chloride=True,
+        reactor=reactor,
+        pco2_atm=pco2_atm,
+    )
     cacl2_mol = _cacl2_mol_l(cacl2)
     active, _ = _roots(setup, target, cacl2_mol)
     eq = setup.solve(active, cacl2_mol)
@@ -831,6 +1191,8 @@ def fluoride_at_setpoint(
         reagent=setup.reagent.key,
         purity=setup.purity,
         target_ph=target,
+        **setup.reactor_attrs(),
+        **setup.influent.attrs(),
         warnings=_warnings(setup, eq),
     )
     return df
@@ -849,6 +1211,8 @@ def daily_table(
     extra_calcium_chloride_mg_l: float = 0.0,
     solids: str = "fresh",
     activity: str = "davies",
+    reactor: str = "closed",
+    pco2_atm: float | None = None,
 ) -> pd.DataFrame:
     """Daily reagent and sludge at a pH setpoint and a flow, for one reagent or several side by side.
 
@@ -866,7 +1230,7 @@ def daily_table(
         Purity of the single reagent, or {reagent: purity}; defaults from data. [-]
     solids_fraction : float, optional
         Dry solids fraction of the wet sludge; adds ``wet_sludge_m3_d``. [-]
-    wet_density_kg_m3, extra_calcium_chloride_mg_l, solids, activity
+    wet_density_kg_m3, extra_calcium_chloride_mg_l, solids, activity, reactor, pco2_atm
         As for :func:`sludge_at_dose`.
 
     Returns
@@ -875,7 +1239,9 @@ def daily_table(
         Index ``reagent``; columns ``target_ph``, ``dose_mg_l`` (as sold), ``purity``, ``reagent_kg_d`` (as
         sold), ``active_kg_d``, ``product_m3_d`` (liquid and slurry products, NaN for dry ones), ``ceiling_ph``
         (NaN: no ceiling), ``dry_sludge_kg_d``, ``wet_sludge_m3_d`` (with a solids fraction),
-        ``fluoride_mg_l`` (water with fluoride) and ``calcium_chloride_kg_d`` (when dosed).
+        ``reactor`` (closed or open), ``fluoride_mg_l`` (water with fluoride) and ``calcium_chloride_kg_d``
+        (when dosed). ``attrs``: the flow, ``reactor``, ``pco2_atm`` and ``warnings`` (the influent's and the
+        reactor's notes).
     """
     names = [reagent] if isinstance(reagent, str) or not isinstance(reagent, Sequence) else list(reagent)
     if not names:
@@ -903,7 +1269,14 @@ def daily_table(
     rows = []
     for name in names:  # one search per reagent compared (a handful), each vectorised
         setup = _setup(
-            water, name, purities[name], solids=solids, activity=activity, with_calcium_chloride=cacl2 > 0
+            water,
+            name,
+            purities[name],
+            solids=solids,
+            activity=activity,
+            with_calcium_chloride=cacl2 > 0,
+            reactor=reactor,
+            pco2_atm=pco2_atm,
         )
         cacl2_mol = _cacl2_mol_l(np.array([cacl2]))
         active, ceiling = _roots(setup, target, cacl2_mol)
@@ -923,6 +1296,7 @@ def daily_table(
             else dose * flow / 1000.0 / (density_product * 1000.0),
             "ceiling_ph": float(ceiling.ceiling_ph[0]),
             "dry_sludge_kg_d": float(sludge.loc["total", "kg_d"]),
+            "reactor": setup.reactor,
         }
         if fraction is not None:
             row["wet_sludge_m3_d"] = row["dry_sludge_kg_d"] / fraction / density
@@ -932,5 +1306,12 @@ def daily_table(
             row["calcium_chloride_kg_d"] = cacl2 * flow / 1000.0
         rows.append(row)
     df = pd.DataFrame(rows).set_index("reagent")
-    df.attrs.update(flow_m3_d=flow, solids_fraction=fraction, wet_density_kg_m3=density)
+    df.attrs.update(
+        flow_m3_d=flow,
+        solids_fraction=fraction,
+        wet_density_kg_m3=density,
+        reactor=setup.reactor,
+        pco2_atm=setup.pco2_atm,
+        warnings=setup.notes(),
+    )
     return df

@@ -103,6 +103,10 @@ class Water:
     alkalinity_mg_l_caco3 : float
         Measured (total) alkalinity; total carbonate follows from it at the measured pH, or pH 8.3 when none is
         given. [mg/L as CaCO3]
+    acidity_mg_l_caco3 : float, optional
+        Measured net acidity by the hot peroxide method (Standard Methods 2310 B, EPA 305.1: oxidised, boiled,
+        titrated to pH 8.2-8.3), negative for a net alkaline water; None when not measured. When given, it
+        sizes the raw water's unmeasured acid or base for the dose instead of the measured pH. [mg/L as CaCO3]
     ammonia_mg_l_n : float
         Ammonia + ammonium as N. [mg/L]
     edta_mg_l : float
@@ -129,6 +133,7 @@ class Water:
     citrate_mg_l: float = 0.0
     fluoride_mg_l: float = 0.0
     tss_mg_l: float = 0.0
+    acidity_mg_l_caco3: float | None = None
     name: str = ""
 
     def __post_init__(self):
@@ -148,8 +153,16 @@ class Water:
             _number("ph", self.ph, 0.0, 14.0, "")
         for f in fields(self):
             if f.name.endswith("_mg_l") or f.name.endswith("_mg_l_n") or f.name.endswith("_mg_l_caco3"):
-                if f.name != "metals_mg_l":
+                if f.name not in ("metals_mg_l", "acidity_mg_l_caco3"):
                     _number(f.name, getattr(self, f.name), 0.0, MAX_MAJOR_MG_L, "mg/L")
+        if self.acidity_mg_l_caco3 is not None:
+            _number(
+                "acidity_mg_l_caco3",
+                self.acidity_mg_l_caco3,
+                -MAX_MAJOR_MG_L,
+                MAX_MAJOR_MG_L,
+                "mg/L as CaCO3 (hot peroxide net acidity: negative for a net alkaline water; None: not measured)",
+            )
         if not isinstance(self.name, str):
             raise InputError("name", self.name, "a text label is required")
         if self.alkalinity_mg_l_caco3 > 0:
