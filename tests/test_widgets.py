@@ -223,6 +223,28 @@ def test_dose_and_sludge_at_the_setpoint_are_the_dose_modules(panel, demo):
     assert f"{expected['reagent_kg_d'].iloc[0]:.4g} kg/d" in panel.dose.value
 
 
+def test_measured_acidity_and_reactor_reach_the_dose_and_the_scenario_file(panel, demo, tmp_path):
+    panel.fields["acidity_mg_l_caco3"].value = "250"
+    panel.fields["reagent"].value = "caustic"
+    panel.fields["reactor"].value = "open"
+    state = panel.state()
+    assert state.water.acidity_mg_l_caco3 == 250.0 and state.reagent.reactor == "open"
+    target = panel.design.setpoint_ph
+    expected = dose.daily_table(state.water, "caustic", target, 500.0, reactor="open")
+    pd.testing.assert_frame_equal(panel.dose_table, expected)
+    assert "open to the air (aerated) reactor" in panel.dose.value
+    assert panel.sludge_table.attrs["acidity_basis"] == "measured acidity"
+    path = tmp_path / "acid.toml"
+    panel.fields["path"].value = str(path)
+    panel.save_button.click()
+    saved = read_scenario(path)
+    assert saved.water.acidity_mg_l_caco3 == 250.0 and saved.reagent.reactor == "open"
+    panel.fields["acidity_mg_l_caco3"].value = "lots"  # refused beside its own field, nothing else changes
+    assert "a number is required" in panel.fields["acidity_mg_l_caco3"].error_text
+    panel.fields["acidity_mg_l_caco3"].value = ""  # blank: not measured
+    assert panel.state().water.acidity_mg_l_caco3 is None
+
+
 def test_two_stage_scheme_is_shown_when_no_single_ph_works():
     # aluminium (amphoteric, minimum near pH 6.5) and cadmium (needs pH > 10) at tight limits: no single pH
     water = wb.Water(metals_mg_l={"Al": 20.0, "Cd": 5.0}, ph=3.0, sulfate_mg_l=300, sodium_mg_l=60)

@@ -7,8 +7,10 @@ Public API (``import workbench as wb``; stable: notebooks, the command line and 
 
     wb.Water(metals_mg_l={...}, temperature_c=25, ph=None, sulfate_mg_l, chloride_mg_l, sodium_mg_l,
              calcium_mg_l, magnesium_mg_l, alkalinity_mg_l_caco3, ammonia_mg_l_n, edta_mg_l, citrate_mg_l,
-             fluoride_mg_l, tss_mg_l, name)
-        an influent, validated on construction
+             fluoride_mg_l, tss_mg_l, acidity_mg_l_caco3=None, name)
+        an influent, validated on construction (acidity: measured hot peroxide net acidity, may be negative)
+    wb.ion_balance(water)
+        IonBalance: cations against anions of the analysis (meq/L, %), and whether it meets the acceptance rule
     wb.residual_curve(water, ph, *, solids="fresh", activity="davies", solubility_shift=None)
         DataFrame, index pH, a column per metal: dissolved mg/L
     wb.minimum_solubility(water, *, ph_range=(4, 13.5), solids, activity, solubility_shift)
@@ -30,11 +32,15 @@ Public API (``import workbench as wb``; stable: notebooks, the command line and 
                         setpoint_ph, progress)
         UncertaintyBand: nominal, lower, median, upper curves; probability of meeting each limit
     wb.raw_water_acidity(water)
-        unmeasured strong acid/base that closes the analysis at its pH; mineral and total acidity (as CaCO3)
-    wb.dose_curve(water, reagent, dose_mg_l, *, purity=None, extra_calcium_chloride_mg_l=0, solids)
-        titration curve: dose_mg_l, pH, dissolved metals, fluoride_mg_l, sludge_mg_l, calcium_mg_l
-    wb.dose_for_ph(water, reagent, target_ph, *, purity=None, ...), wb.reagent_ceiling_ph(water, reagent)
-        dose of product as sold for a target pH (bracketed root); the reagent's own pH ceiling in this water
+        unmeasured strong acid/base that closes the analysis (metals as analysed) at its pH or its measured
+        acidity; mineral, total and hot peroxide acidity (as CaCO3); ion balance; supersaturated solids
+    wb.dose_curve(water, reagent, dose_mg_l, *, purity=None, extra_calcium_chloride_mg_l=0, solids,
+                  reactor="closed", pco2_atm=None)
+        titration curve: dose_mg_l, pH, dissolved metals, fluoride_mg_l, sludge_mg_l, calcium_mg_l; a closed
+        reactor or one open to the air (attrs say which)
+    wb.dose_for_ph(water, reagent, target_ph, *, purity=None, ..., reactor), wb.reagent_ceiling_ph(water, reagent)
+        dose of product as sold for a target pH (bracketed root; a float carrying reactor, warnings); the
+        reagent's own pH ceiling in this water
     wb.sludge_at_dose(water, reagent, dose_mg_l, *, flow_m3_d, solids_fraction),
     wb.daily_table(water, reagent, target_ph, flow_m3_d), wb.fluoride_at_setpoint(...)
         sludge per solid (mg/L, kg/d, wet m3/d); daily reagent and sludge table; residual fluoride
@@ -78,6 +84,8 @@ _SOURCES = {
     "dose_for_ph": "workbench.treatment.dose",
     "fluoride_at_setpoint": "workbench.treatment.dose",
     "raw_water_acidity": "workbench.treatment.dose",
+    "IonBalance": "workbench.treatment.influent",
+    "ion_balance": "workbench.treatment.influent",
     "reagent_ceiling_ph": "workbench.treatment.dose",
     "sludge_at_dose": "workbench.treatment.dose",
     "read_jar_tests": "workbench.treatment.jar_tests",
@@ -129,6 +137,7 @@ if TYPE_CHECKING:  # for type checkers and editors: the same names, imported eag
         reagent_ceiling_ph,
         sludge_at_dose,
     )
+    from workbench.treatment.influent import IonBalance, ion_balance
     from workbench.treatment.jar_tests import read_jar_tests
     from workbench.treatment.limits import available_limit_sets, combine_limits, load_limits, permit_limits
     from workbench.treatment.setpoint import SetpointDesign, design_setpoint
@@ -140,6 +149,7 @@ __all__ = [
     "ConvergenceError",
     "DataError",
     "InputError",
+    "IonBalance",
     "ModelRangeError",
     "Scenario",
     "SetpointDesign",
@@ -158,6 +168,7 @@ __all__ = [
     "fit_solubility_shifts",
     "flag_jars",
     "fluoride_at_setpoint",
+    "ion_balance",
     "load_limits",
     "minimum_solubility",
     "overlay",

@@ -7,6 +7,7 @@ A scenario holds everything an engineer entered, so that a figure can be regener
 
     [influent]                        # required: the Water fields (temperature_c, ph, sulfate_mg_l, ...)
     temperature_c = 22.0
+    acidity_mg_l_caco3 = 120.0        # optional: measured hot peroxide net acidity (may be negative)
     [influent.metals_mg_l]            # metal key = mg/L as the element (Cr = Cr(III), Fe = Fe(III))
     Zn = 25.0
 
@@ -29,6 +30,7 @@ A scenario holds everything an engineer entered, so that a figure can be regener
     name = "lime"                     # lime, quicklime, caustic, magnesium_hydroxide, soda_ash
     purity = 0.95                     # optional, (0, 1]; default from data/reagents
     flow_m3_d = 500.0                 # optional, > 0
+    reactor = "closed"                # optional: "closed" (default) or "open" (aerated, CO2 with the air)
 
     [calibration]                     # optional: apparent solubility shift per metal from jar tests
     Zn = 0.55                         # log10 units, |shift| <= 5
@@ -63,6 +65,7 @@ import pandas as pd
 
 from workbench._paths import data_dir
 from workbench.errors import InputError
+from workbench.treatment.influent import REACTORS
 from workbench.treatment.limits import BASES, available_limit_sets, combine_limits, load_limits, permit_limits
 from workbench.treatment.setpoint import (
     DEFAULT_MARGIN,
@@ -266,14 +269,19 @@ class ReagentChoice:
         Mass fraction of the active ingredient in the product as sold, (0, 1]; default from data/reagents. [-]
     flow_m3_d : float, optional
         Wastewater flow, > 0. [m³/d]
+    reactor : {"closed", "open"}
+        The reagent's reactor: closed (no gas exchange) or open to the air (aerated; CO2 at equilibrium with the
+        air at every dose). The dose and sludge say which was used.
     """
 
     name: str = "lime"
     purity: float | None = None
     flow_m3_d: float | None = None
+    reactor: str = "closed"
 
     def __post_init__(self):
         _choice("reagent.name", self.name, REAGENT_NAMES)
+        _choice("reagent.reactor", self.reactor, REACTORS)
         if self.purity is not None:
             object.__setattr__(
                 self,
@@ -519,8 +527,11 @@ class Scenario:
             if getattr(d, key) is not None:
                 out.append(f"{key} = {_toml_value(getattr(d, key))}")
         if self.reagent is not None:
-            out += ["", "[reagent]  # purity: mass fraction as sold (omitted: default); flow in m3/d"]
-            for key in ("name", "purity", "flow_m3_d"):
+            out += [
+                "",
+                "[reagent]  # purity: mass fraction as sold (omitted: default); flow in m3/d; reactor closed/open",
+            ]
+            for key in ("name", "purity", "flow_m3_d", "reactor"):
                 if getattr(self.reagent, key) is not None:
                     out.append(f"{key} = {_toml_value(getattr(self.reagent, key))}")
         if self.calibration is not None:
@@ -685,7 +696,9 @@ def parse_scenario(doc: Mapping) -> Scenario:
         water=_influent(doc.get("influent")),
         limits=_section(doc, "limits", LimitsChoice, ("set", "basis", "permit", "permit_source")),
         design=_section(doc, "design", DesignOptions, tuple(f.name for f in fields(DesignOptions))),
-        reagent=_section(doc, "reagent", ReagentChoice, ("name", "purity", "flow_m3_d"), optional=True),
+        reagent=_section(
+            doc, "reagent", ReagentChoice, ("name", "purity", "flow_m3_d", "reactor"), optional=True
+        ),
         calibration=_calibration(doc.get("calibration")),
         uncertainty=_section(
             doc, "uncertainty", UncertaintySettings, ("samples", "seed", "default_uncertainty")

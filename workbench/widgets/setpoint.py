@@ -72,6 +72,16 @@ MAJOR_FIELDS = (
     ("citrate_mg_l", "citrate", "mg/L as citric acid"),
     ("tss_mg_l", "suspended solids", "mg/L"),
 )
+#: Optional measured influent values (blank: not measured): (Water field, label, unit, hint).
+MEASURED_FIELDS = (
+    (
+        "acidity_mg_l_caco3",
+        "acidity (hot peroxide)",
+        "mg/L as CaCO₃",
+        "net acidity to pH 8.3 (negative: net alkaline); when given it sizes the unmeasured acid",
+    ),
+)
+REACTOR_LABELS = {"closed": "closed (no gas exchange)", "open": "open to the air (aerated)"}
 BASIS_LABELS = {
     "daily_max": "daily maximum",
     "monthly_avg": "monthly average",
@@ -88,6 +98,7 @@ _FIELD_OF = {
     "temperature_c": "temperature_c",
     "ph": "ph",
     **{name: name for name, _, _ in MAJOR_FIELDS},
+    **{name: name for name, *_ in MEASURED_FIELDS},
     "limits.set": "limit_set",
     "limit set": "limit_set",
     "limits.basis": "basis",
@@ -114,6 +125,8 @@ _FIELD_OF = {
     "purity": "purity",
     "reagent.flow_m3_d": "flow_m3_d",
     "flow_m3_d": "flow_m3_d",
+    "reagent.reactor": "reactor",
+    "reactor": "reactor",
     "uncertainty.samples": "samples",
     "samples": "samples",
     "uncertainty.seed": "seed",
@@ -136,6 +149,10 @@ def field_for(name: str) -> str:
     if name.startswith("calibration"):
         return "calibration"
     return _FIELD_OF.get(name, "")
+
+
+def _measured_names() -> tuple[str, ...]:
+    return tuple(name for name, *_ in MEASURED_FIELDS)
 
 
 def message_of(exc: InputError) -> str:
@@ -243,6 +260,10 @@ class SetpointPanel:
         f["temperature_c"] = float_field("temperature_c", "temperature", w.temperature_c, "°C")
         for name, label, unit in MAJOR_FIELDS:
             f[name] = float_field(name, label, float(getattr(w, name)), unit)
+        for name, label, unit, hint in MEASURED_FIELDS:
+            f[name] = text_number_field(
+                name, label, getattr(w, name), unit, placeholder="blank: not measured", hint=hint
+            )
         sets = [("none", NONE)] + [(wb.load_limits(n).attrs["title"], n) for n in wb.available_limit_sets()]
         f["limit_set"] = choice_field(
             "limit_set", "example limit set", sets, s.limits.set or NONE, width="26em"
@@ -301,6 +322,9 @@ class SetpointPanel:
         f["flow_m3_d"] = text_number_field(
             "flow_m3_d", "flow", reagent.flow_m3_d, "m³/d", placeholder="blank: no kg/d"
         )
+        f["reactor"] = choice_field(
+            "reactor", "reactor", [(REACTOR_LABELS[k], k) for k in REACTOR_LABELS], reagent.reactor
+        )
         u = s.uncertainty
         f["samples"] = int_field("samples", "samples", u.samples)
         f["seed"] = int_field("seed", "seed", u.seed)
@@ -354,14 +378,16 @@ class SetpointPanel:
                 *boxes("name"),
                 widgets.HTML('<span style="color:#555">metals, mg/L as the element (0 = absent)</span>'),
                 metals,
-                *boxes("ph", "temperature_c", *(n for n, _, _ in MAJOR_FIELDS)),
+                *boxes(
+                    "ph", *(n for n, *_ in MEASURED_FIELDS), "temperature_c", *(n for n, _, _ in MAJOR_FIELDS)
+                ),
                 heading("Limits"),
                 widgets.HTML(f'<span style="color:#555">{html.escape(PERMIT_GOVERNS)}</span>'),
                 *boxes("limit_set", "basis", "permit", "permit_source"),
                 heading("Design"),
                 *boxes("margin", "ph_low", "ph_high", "rule", "effluent_tss_mg_l", "solids"),
                 heading("Reagent"),
-                *boxes("reagent", "purity", "flow_m3_d"),
+                *boxes("reagent", "purity", "flow_m3_d", "reactor"),
                 heading("Jar-test calibration"),
                 self.use_calibration,
                 self.calibration_note,
@@ -406,7 +432,7 @@ class SetpointPanel:
         """Every observer, in one place. Values change on release / Enter only (continuous_update=False)."""
         for key in METALS:
             self.fields[f"metal:{key}"].control.observe(self._on_metal_change, names="value")
-        for name in ("name", "ph", "temperature_c", *(n for n, _, _ in MAJOR_FIELDS)):
+        for name in ("name", "ph", "temperature_c", *(n for n, _, _ in MAJOR_FIELDS), *_measured_names()):
             self.fields[name].control.observe(self._on_influent_change, names="value")
         for name in ("limit_set", "basis", "permit", "permit_source"):
             self.fields[name].control.observe(self._on_limits_change, names="value")
@@ -414,7 +440,7 @@ class SetpointPanel:
         for name in ("ph_low", "ph_high", "rule", "effluent_tss_mg_l", "solids"):
             self.fields[name].control.observe(self._on_design_change, names="value")
         self.fields["reagent"].control.observe(self._on_reagent_change, names="value")
-        for name in ("purity", "flow_m3_d"):
+        for name in ("purity", "flow_m3_d", "reactor"):
             self.fields[name].control.observe(self._on_feed_change, names="value")
         self.use_calibration.observe(self._on_use_calibration_change, names="value")
         self.compute_band.on_click(self._on_compute_band_click)
@@ -530,9 +556,12 @@ class SetpointPanel:
         f = self.fields
         out: dict[str, float | None] = {}
         names = [f"metal:{k}" for k in METALS] + ["ph", "temperature_c", *(n for n, _, _ in MAJOR_FIELDS)]
+        names += _measured_names()
         for name in names:
             try:
-                value = f[name].number(optional=name == "ph", blank="blank = not measured")
+                value = f[name].number(
+                    optional=name in ("ph", *_measured_names()), blank="blank = not measured"
+                )
             except FieldError as exc:
                 errors.setdefault(name, exc.message)
                 continue
@@ -559,6 +588,7 @@ class SetpointPanel:
                 temperature_c=numbers["temperature_c"],
                 name=self.fields["name"].value,
                 **{name: numbers[name] for name, _, _ in MAJOR_FIELDS},
+                **{name: numbers[name] for name in _measured_names()},
             )
         except InputError as exc:
             errors.setdefault(field_for(exc.field), message_of(exc))
@@ -595,6 +625,7 @@ class SetpointPanel:
             name=f["reagent"].value,
             purity=f["purity"].number(optional=True, blank="blank = default purity"),
             flow_m3_d=f["flow_m3_d"].number(optional=True, blank="blank = no daily amounts"),
+            reactor=f["reactor"].value,
         )
 
     def _uncertainty(self) -> UncertaintySettings:
@@ -618,6 +649,8 @@ class SetpointPanel:
             f["temperature_c"].value = w.temperature_c
             for name, _, _ in MAJOR_FIELDS:
                 f[name].value = float(getattr(w, name))
+            for name in _measured_names():
+                set_text_number(f[name], getattr(w, name))
             f["limit_set"].value = s.limits.set or NONE
             f["basis"].value = s.limits.basis or NONE
             f["permit"].value = format_permit(s.limits.permit)
@@ -629,6 +662,7 @@ class SetpointPanel:
             f["reagent"].value = reagent.name
             set_text_number(f["purity"], reagent.purity)
             set_text_number(f["flow_m3_d"], reagent.flow_m3_d)
+            f["reactor"].value = reagent.reactor
             f["samples"].value = s.uncertainty.samples
             f["seed"].value = s.uncertainty.seed
             f["default_uncertainty"].value = s.uncertainty.default_uncertainty
@@ -850,18 +884,17 @@ class SetpointPanel:
         self.dose.value = self._dose_html(daily, sludge, what, r, design)
 
     def _dose_for(self, water: Water, r: ReagentChoice, target: float, solids: str):
-        key = (repr(water), r.name, r.purity, r.flow_m3_d, target, solids)
+        key = (repr(water), r.name, r.purity, r.flow_m3_d, r.reactor, target, solids)
         if key in self._doses:
             return self._doses[key]
+        common = dict(purity=r.purity, solids=solids, reactor=r.reactor)
         if r.flow_m3_d is not None:
-            daily = _dose.daily_table(water, r.name, target, r.flow_m3_d, purity=r.purity, solids=solids)
+            daily = _dose.daily_table(water, r.name, target, r.flow_m3_d, **common)
             dose_mg_l = float(daily["dose_mg_l"].iloc[0])
         else:
             daily = None
-            dose_mg_l = _dose.dose_for_ph(water, r.name, target, purity=r.purity, solids=solids)
-        sludge = _dose.sludge_at_dose(
-            water, r.name, dose_mg_l, purity=r.purity, flow_m3_d=r.flow_m3_d, solids=solids
-        )
+            dose_mg_l = float(_dose.dose_for_ph(water, r.name, target, **common))
+        sludge = _dose.sludge_at_dose(water, r.name, dose_mg_l, flow_m3_d=r.flow_m3_d, **common)
         self._doses[key] = (daily, sludge)
         while len(self._doses) > CACHE_SIZE:
             self._doses.popitem(last=False)
@@ -872,7 +905,8 @@ class SetpointPanel:
         dose_mg_l = sludge.attrs["dose_mg_l"]
         purity = sludge.attrs["purity"]
         lines = [
-            f"<b>{html.escape(name)}</b> (purity {purity:g}) to {html.escape(what)}: "
+            f"<b>{html.escape(name)}</b> (purity {purity:g}) to {html.escape(what)}, "
+            f"{html.escape(REACTOR_LABELS[sludge.attrs['reactor']])} reactor: "
             f"<b>{dose_mg_l:.4g} mg/L</b> of product as sold"
         ]
         if daily is not None:
