@@ -69,8 +69,14 @@ class OpenTableau:
     log_shift: float  # log K_H + log pCO2 - log beta_H2CO3 = log ({CO3^2-}{H+}^2) [log10]
 
 
+_CACHE: dict = {}
+_CACHE_SIZE = 16
+
+
 def open_tableau(tab: Tableau, log_pco2: float, log_kh: float) -> OpenTableau:
     """The tableau ``tab`` (which must hold CO3^2-) with carbonate exchanged with a gas at log10 pCO2 [atm].
+
+    The last few are kept (a tableau is immutable), so that the solver's per-tableau arrays are made once.
 
     Parameters
     ----------
@@ -81,6 +87,17 @@ def open_tableau(tab: Tableau, log_pco2: float, log_kh: float) -> OpenTableau:
     log_kh : float
         log10 Henry constant of CO2 at the tableau's temperature (:func:`henry_log_k`). [log10 mol/(L atm)]
     """
+    key = (id(tab), float(log_pco2), float(log_kh))
+    hit = _CACHE.get(key)
+    if hit is not None and hit.closed is tab:
+        return hit
+    if len(_CACHE) >= _CACHE_SIZE:
+        _CACHE.pop(next(iter(_CACHE)))
+    _CACHE[key] = made = _open_tableau(tab, log_pco2, log_kh)
+    return made
+
+
+def _open_tableau(tab: Tableau, log_pco2: float, log_kh: float) -> OpenTableau:
     j = tab.component(CARBONATE)
     log_beta_co2 = float(tab.log_k[tab.species.index(DISSOLVED_CO2)])
     shift = float(log_kh + log_pco2 - log_beta_co2)
