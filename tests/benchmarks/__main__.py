@@ -202,6 +202,52 @@ def case_dose(repeat):
     ]
 
 
+def case_reactor(repeat):
+    """Closed against open (aerated) reactor, acid mine drainage water (Fe(III) 200, Al 50, Zn 20, Mn 15, Cu 5
+    mg/L, sulfate 3000 mg/L, pH 2.8): lime dose curve of 200 doses and dose_for_ph to pH 7.5 in each mode (below
+    lime's calcite ceiling in an open reactor), timed in turns; the open curve's largest deviation from the air's
+    CO2 (each answer is verified to 1e-9 log units)."""
+    import workbench as wb
+    from workbench.chemistry import open_system
+    from workbench.treatment import dose, influent
+
+    water = wb.Water(
+        metals_mg_l={"Fe": 200.0, "Al": 50.0, "Zn": 20.0, "Mn": 15.0, "Cu": 5.0}, sulfate_mg_l=3000.0, ph=2.8
+    )
+    doses = np.linspace(0.0, 1000.0, 200)
+    closed, opened = _paired_times(
+        lambda: wb.dose_curve(water, "lime", doses),
+        lambda: wb.dose_curve(water, "lime", doses, reactor="open"),
+        repeat,
+        inner=5,
+    )
+    root_closed, root_open = _paired_times(
+        lambda: wb.dose_for_ph(water, "lime", 7.5),
+        lambda: wb.dose_for_ph(water, "lime", 7.5, reactor="open"),
+        repeat,
+        inner=5,
+    )
+    _, eq = dose.dose_equilibrium(water, "lime", doses, reactor="open")
+    air = influent.atmospheric_co2().log_pco2 + open_system.henry_log_k(water.temperature_c)
+    worst = float(np.abs(open_system.co2_activity_log(eq) - air).max())
+    d_closed = float(wb.dose_for_ph(water, "lime", 7.5))
+    d_open = float(wb.dose_for_ph(water, "lime", 7.5, reactor="open"))
+    return [
+        ("4 AMD lime curve, 200 doses: closed", closed, ""),
+        (
+            "4 AMD lime curve, 200 doses: open",
+            opened,
+            f"{opened / closed:.2f}x closed; CO2 off by {worst:.1e} log",
+        ),
+        ("4 AMD dose_for_ph (lime, 7.5): closed", root_closed, f"{d_closed:.0f} mg/L"),
+        (
+            "4 AMD dose_for_ph (lime, 7.5): open",
+            root_open,
+            f"{root_open / root_closed:.2f}x; {d_open:.0f} mg/L",
+        ),
+    ]
+
+
 def case_widget(repeat):
     """Setpoint panel: from a margin change to updated figure data (headless), demo scenario."""
     from workbench.scenario import demo_scenario_path, read_scenario
@@ -546,6 +592,7 @@ def main(argv=None) -> int:
     rows += case_mixture(repeat)
     rows += case_chempy(min(repeat, 3))
     rows += case_dose(repeat)
+    rows += case_reactor(repeat)
     rows += case_widget(repeat)
     rows += case_monte_carlo(100 if args.quick else 1000, args.quick)
     rows += case_import(3)
