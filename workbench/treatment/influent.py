@@ -15,10 +15,8 @@ import math
 import numbers
 from dataclasses import dataclass
 
-import numpy as np
-
 from workbench._paths import data_dir
-from workbench.chemistry import database, solver, tableau
+from workbench.chemistry import database, tableau
 from workbench.chemistry import water_properties as wp
 from workbench.errors import DataError, InputError
 from workbench.treatment.water import CACO3_EQ_G, MAJOR_IONS, METALS, Water
@@ -166,19 +164,26 @@ def _charge(data, comp: str) -> float:
 
 
 def _weak_charges(water: Water, totals: dict[str, float], ph: float) -> dict[str, float]:
-    """Charge of ammonia, EDTA and citrate at the pH, from their protonated forms alone (no metal). [meq/L]"""
-    present = tuple(c for c in PH_DEPENDENT if c in totals)
-    if not present:
-        return {}
-    tab = tableau.build(present, water.temperature_c, "none")
-    row = np.zeros(len(tab.components))
-    for comp in present:
-        row[tab.component(comp)] = totals[comp]
-    eq = solver.solve(tab, row, np.array([ph]), activity="ideal")
+    """Charge of ammonia, EDTA and citrate at the pH, from their protonated forms alone (no metal), ideal
+    solution. [meq/L]
+
+    Each form holds one ligand, so its share is ``10**(log_k - n_H pH)`` over the sum of these (the
+    alpha-fractions of an acid-base system, e.g. Stumm & Morgan, ch. 3)."""
     out = {}
-    for comp in present:
-        holds = tab.a[:, tab.component(comp)] > 0
-        out[comp] = float((eq.conc[0, holds] * tab.z[holds]).sum()) * 1000.0
+    for comp in PH_DEPENDENT:
+        if comp not in totals:
+            continue
+        tab = tableau.build((comp,), water.temperature_c, "none")
+        j = tab.component(comp)
+        holds = tab.a[:, j] > 0
+        if (tab.a[holds, j] != 1).any():  # a form with two ligands would need the mass balance solved
+            raise DataError(
+                f"{comp}: a species with more than one ligand; the ion balance counts one per form"
+            )
+        log_share = tab.log_k[holds] - tab.a[holds, 0] * ph
+        share = 10.0 ** (log_share - log_share.max())
+        share /= share.sum()
+        out[comp] = float((share * tab.z[holds]).sum()) * totals[comp] * 1000.0
     return out
 
 
