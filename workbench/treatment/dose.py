@@ -329,11 +329,10 @@ def _close_influent(
             return _hot_acidity_eq_l(tab, _with_closure(tab, raw, net), solids, activity) - target
 
         net = _find_closure(missing, f"to the measured acidity {measured:g} mg/L as CaCO3")
-        ph_as_analysed = float(
-            solver.solve(bare, _with_closure(bare, raw, net), None, activity=activity, ph_guess=water.ph).ph[
-                0
-            ]
+        as_analysed = solver.solve(
+            bare, _with_closure(bare, raw, net), None, activity=activity, ph_guess=water.ph
         )
+        ph_as_analysed = float(as_analysed.ph[0])
     base = _with_closure(tab, raw, net)
     supersaturated = _supersaturated(tab, solver.solve(bare, base, ph, activity=activity))
     ph_with_solids = float(water.ph)
