@@ -1058,6 +1058,7 @@ ROWS = [
         lambda tmp: export_figure_pack(_pack_scenario(), tmp / "pack", progress=5),
         "progress",
         "a function progress(done, total), or None",
+    ),
     (
         "wb.dose_curve",
         "`reactor='aerated'` (unknown)",
